@@ -1,0 +1,1 @@
+"""Small synthetic demo arc frames from an invented instrument."""

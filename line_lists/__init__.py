@@ -1,0 +1,1 @@
+"""Reference line lists shipped with wavecal (ECSV tables, one per element)."""

@@ -1,0 +1,513 @@
+"""Instrument profiles: a TOML file describing one spectrograph, read into frozen dataclasses.
+
+A profile carries everything the physics and the frame reader need (grating, camera, detector),
+the prior uncertainty of each nominal value, and a mapping from the observatory's own FITS
+header keywords to the quantities the pipeline reads. The TOML layout is documented in the
+README ("Instrument profiles").
+"""
+from __future__ import annotations
+
+import math
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - exercised only on Python 3.10
+    import tomli as tomllib
+
+from .errors import HeaderError, ProfileError
+
+__all__ = [
+    "MOUNTS",
+    "HEADER_QUANTITIES",
+    "GratingSpec",
+    "CameraSpec",
+    "DetectorSpec",
+    "ApproximateSpec",
+    "Priors",
+    "HeaderField",
+    "InstrumentProfile",
+    "load_profile",
+    "example_profile_paths",
+]
+
+#: Supported dispersing mounts. ``reflection``: reflection grating with a fixed angle between the
+#: collimator and camera axes. ``transmission``: transmission grating, camera axis at a fixed
+#: angle to the undeviated beam. ``grism``: a grating on the hypotenuse of a prism.
+#: ``approximate``: the geometry is unknown; only a rough wavelength range is given.
+MOUNTS = ("reflection", "transmission", "grism", "approximate")
+
+#: Quantities the pipeline reads from a frame header, via the profile's ``[header]`` table.
+HEADER_QUANTITIES = (
+    "grating_angle",
+    "lamps",
+    "image_type",
+    "exposure_time",
+    "observation_time",
+    "binning",
+)
+
+
+@dataclass(frozen=True)
+class GratingSpec:
+    """The disperser.
+
+    Attributes
+    ----------
+    mount : str
+        One of :data:`MOUNTS`.
+    grooves_per_mm : float
+        Groove density in lines per millimetre.
+    order : int
+        Diffraction order used (positive).
+    deviation_deg : float
+        Reflection: the full angle between collimator and camera axes. Transmission and grism:
+        the angle between the undeviated beam and the camera axis.
+    angle_zero_point_deg, angle_scale : float
+        The physical grating angle is ``angle_scale * header_value + angle_zero_point_deg``.
+        For a reflection grating the grating angle is the rotation of the grating normal from
+        the bisector of the collimator and camera axes; for a transmission grating the angle of
+        incidence; for a grism the tilt added to the prism apex angle.
+    prism_apex_deg, prism_index, prism_index_slope_per_nm, prism_reference_nm : float
+        Grism only: apex angle, refractive index at the reference wavelength and its slope.
+    blaze_nm : float or None
+        Blaze wavelength in the order used, if known.
+    """
+
+    mount: str
+    grooves_per_mm: float
+    order: int = 1
+    deviation_deg: float = 0.0
+    angle_zero_point_deg: float = 0.0
+    angle_scale: float = 1.0
+    prism_apex_deg: float = 0.0
+    prism_index: float = 1.0
+    prism_index_slope_per_nm: float = 0.0
+    prism_reference_nm: float = 600.0
+    blaze_nm: float | None = None
+
+
+@dataclass(frozen=True)
+class CameraSpec:
+    """Camera optics. ``focal_length_mm`` is the camera (exit) focal length."""
+
+    focal_length_mm: float
+    collimator_focal_length_mm: float | None = None
+
+
+@dataclass(frozen=True)
+class DetectorSpec:
+    """The detector and its read-out.
+
+    Pixel regions use numpy's convention: 0-based, half-open ``[start, stop)`` ranges on the
+    raw (unbinned-as-read) image, as ``(row_start, row_stop, col_start, col_stop)``.
+
+    Attributes
+    ----------
+    pixel_size_um : float
+        Unbinned pixel pitch in micrometres.
+    shape : tuple of int
+        Unbinned raw frame shape ``(rows, columns)`` as read, including any overscan.
+    dispersion_axis : int
+        numpy axis of the image along which wavelength changes: 1 = along a row (columns
+        change, FITS NAXIS1), 0 = along a column (rows change, FITS NAXIS2).
+    wavelength_increases : int
+        +1 if wavelength increases with pixel index along the dispersion axis, -1 otherwise.
+    saturation_adu : float
+        Level (raw ADU, before bias subtraction) at or above which a pixel is saturated.
+    gain_e_per_adu, read_noise_e : float
+        Conversion gain and read noise in electrons.
+    overscan : tuple of int or None
+        Overscan region (binned pixels as read), or None when there is none.
+    trim : tuple of int or None
+        Region holding illuminated data (binned pixels as read), or None for the whole frame.
+    bias_adu : float
+        Constant bias level to subtract when there is no overscan.
+    axis_pixel : float or None
+        Unbinned 0-based pixel (along the dispersion axis of the raw frame) hit by the camera
+        axis; None means the centre of the detector.
+    tilt_deg : float
+        Nominal tilt of the detector in the dispersion plane (positive: detector normal turned
+        towards larger diffraction angles).
+    hdu : int or str or None
+        HDU holding the image; None means the first HDU with image data.
+    """
+
+    pixel_size_um: float
+    shape: tuple[int, int]
+    dispersion_axis: int = 1
+    wavelength_increases: int = 1
+    saturation_adu: float = 65535.0
+    gain_e_per_adu: float = 1.0
+    read_noise_e: float = 5.0
+    overscan: tuple[int, int, int, int] | None = None
+    trim: tuple[int, int, int, int] | None = None
+    bias_adu: float = 0.0
+    axis_pixel: float | None = None
+    tilt_deg: float = 0.0
+    hdu: int | str | None = None
+
+    @property
+    def dispersion_range(self) -> tuple[int, int]:
+        """Unbinned ``[start, stop)`` pixels of the illuminated region along the dispersion axis."""
+        if self.trim is None:
+            return (0, int(self.shape[self.dispersion_axis]))
+        return (self.trim[2], self.trim[3]) if self.dispersion_axis == 1 else (self.trim[0], self.trim[1])
+
+    @property
+    def n_dispersion(self) -> int:
+        """Number of unbinned illuminated pixels along the dispersion axis."""
+        start, stop = self.dispersion_range
+        return stop - start
+
+    @property
+    def nominal_axis_pixel(self) -> float:
+        """Unbinned raw-frame pixel hit by the camera axis (centre of the illuminated region
+        unless stated)."""
+        if self.axis_pixel is not None:
+            return float(self.axis_pixel)
+        start, stop = self.dispersion_range
+        return (start + stop - 1) / 2.0
+
+
+@dataclass(frozen=True)
+class ApproximateSpec:
+    """For spectrographs of unknown geometry: a rough central wavelength and dispersion.
+
+    Attributes
+    ----------
+    central_wavelength_nm : float
+        Wavelength near the detector centre.
+    dispersion_nm_per_px : float
+        Reciprocal linear dispersion near the centre (unbinned pixels).
+    central_wavelength_uncertainty, dispersion_uncertainty : float
+        Relative (1-sigma-like half-width) uncertainty of each, e.g. 0.15 for ±15 %.
+    """
+
+    central_wavelength_nm: float
+    dispersion_nm_per_px: float
+    central_wavelength_uncertainty: float = 0.15
+    dispersion_uncertainty: float = 0.15
+
+
+@dataclass(frozen=True)
+class Priors:
+    """Half-widths of the prior ranges around each nominal value.
+
+    The matcher searches the full range; the fit uses each as a Gaussian prior width.
+    """
+
+    grating_angle_deg: float = 1.0
+    focal_length_fraction: float = 0.03
+    axis_pixel_px: float = 20.0
+    tilt_deg: float = 2.0
+
+
+@dataclass(frozen=True)
+class HeaderField:
+    """Where one pipeline quantity lives in the observatory's FITS headers."""
+
+    keyword: str
+    default: Any = None
+
+
+@dataclass(frozen=True)
+class InstrumentProfile:
+    """Everything wavecal knows about one spectrograph before looking at a frame.
+
+    Attributes
+    ----------
+    name : str
+        Human-readable instrument name.
+    medium : str
+        ``"air"`` or ``"vacuum"``: the medium the spectrograph works in, hence of the solution.
+    grating, camera, detector : GratingSpec, CameraSpec, DetectorSpec
+        Hardware description.
+    priors : Priors
+        Prior half-widths on the nominal values.
+    header : dict of str to HeaderField
+        Mapping of :data:`HEADER_QUANTITIES` to header keywords (with optional defaults).
+    lamps : tuple of str
+        Default lamp elements when the header does not say.
+    approximate : ApproximateSpec or None
+        Present for ``mount = "approximate"``.
+    sensitivity_nm : tuple of float or None
+        Range of wavelengths the instrument is sensitive to.
+    source : Path or None
+        File the profile was read from.
+    """
+
+    name: str
+    medium: str
+    grating: GratingSpec
+    camera: CameraSpec
+    detector: DetectorSpec
+    priors: Priors = field(default_factory=Priors)
+    header: dict[str, HeaderField] = field(default_factory=dict)
+    lamps: tuple[str, ...] = ()
+    approximate: ApproximateSpec | None = None
+    sensitivity_nm: tuple[float, float] | None = None
+    source: Path | None = None
+
+    def header_value(self, header: Any, quantity: str, *, path: str | Path | None = None) -> Any:
+        """Read one pipeline quantity from a FITS header through the profile's mapping.
+
+        Parameters
+        ----------
+        header : mapping
+            A FITS header (anything with ``in`` and ``[]``).
+        quantity : str
+            One of :data:`HEADER_QUANTITIES`.
+        path : str or Path, optional
+            The file the header came from, named in the error message.
+
+        Raises
+        ------
+        HeaderError
+            When the keyword is missing and the profile declares no default.
+        """
+        where = f"{path}: " if path is not None else ""
+        spec = self.header.get(quantity)
+        if spec is None:
+            msg = f"{where}profile {self.name!r} maps no header keyword for {quantity!r}"
+            raise HeaderError(msg)
+        if spec.keyword in header and header[spec.keyword] not in (None, ""):
+            return header[spec.keyword]
+        if spec.default is not None:
+            return spec.default
+        msg = (f"{where}header keyword {spec.keyword!r} ({quantity}) is missing and profile "
+               f"{self.name!r} declares no default for it")
+        raise HeaderError(msg)
+
+    def grating_angle_from_header(self, header: Any, *, path: str | Path | None = None) -> float:
+        """Physical grating angle (degrees) for a frame, from its header."""
+        if self.grating.mount == "approximate":
+            return 0.0
+        raw = self.header_value(header, "grating_angle", path=path)
+        try:
+            value = float(raw)
+        except (TypeError, ValueError):
+            where = f"{path}: " if path is not None else ""
+            msg = f"{where}grating angle {raw!r} is not a number"
+            raise HeaderError(msg) from None
+        return self.grating.angle_scale * value + self.grating.angle_zero_point_deg
+
+    def binning_from_header(self, header: Any, *, path: str | Path | None = None) -> tuple[int, int]:
+        """Binning ``(along rows axis 0, along columns axis 1)`` from the header, default 1×1.
+
+        The header value is read as FITS-style ``"<binning along NAXIS1> <binning along NAXIS2>"``.
+        """
+        if "binning" not in self.header:
+            return (1, 1)
+        raw = self.header_value(header, "binning", path=path)
+        parts = str(raw).replace("x", " ").replace(",", " ").split()
+        try:
+            b1, b2 = (int(p) for p in parts) if len(parts) == 2 else (int(parts[0]),) * 2
+        except (ValueError, IndexError):
+            where = f"{path}: " if path is not None else ""
+            msg = f"{where}binning {raw!r} is not of the form 'N M'"
+            raise HeaderError(msg) from None
+        return (b2, b1)
+
+    def lamps_from_header(self, header: Any, *, path: str | Path | None = None) -> tuple[str, ...]:
+        """Lamp elements in use, from the header (``"Hg+Ar"``, ``"HgAr"``, ``"Ne, Ar"`` ...)."""
+        if "lamps" in self.header:
+            try:
+                raw = self.header_value(header, "lamps", path=path)
+            except HeaderError:
+                if self.lamps:
+                    return self.lamps
+                raise
+            return parse_lamps(str(raw))
+        return self.lamps
+
+
+_ELEMENTS = ("Hg", "Ne", "Ar", "Kr", "Xe", "He", "Cd", "Zn", "Na")
+
+
+def parse_lamps(text: str) -> tuple[str, ...]:
+    """Element symbols named in a free-text lamp description, in order of appearance.
+
+    >>> parse_lamps("HgAr + Ne")
+    ('Hg', 'Ar', 'Ne')
+    """
+    found: list[tuple[int, str]] = []
+    lowered = text.lower()
+    for element in _ELEMENTS:
+        start = 0
+        while (i := lowered.find(element.lower(), start)) >= 0:
+            found.append((i, element))
+            start = i + 1
+    ordered = []
+    for _, element in sorted(found):
+        if element not in ordered:
+            ordered.append(element)
+    return tuple(ordered)
+
+
+def _region(value: Any, name: str, source: str) -> tuple[int, int, int, int] | None:
+    if value is None:
+        return None
+    try:
+        rows, cols = value["rows"], value["columns"]
+        region = (int(rows[0]), int(rows[1]), int(cols[0]), int(cols[1]))
+    except (KeyError, TypeError, IndexError, ValueError):
+        msg = f"{source}: [detector] {name} must be a table {{rows = [start, stop], columns = [start, stop]}}"
+        raise ProfileError(msg) from None
+    if region[1] <= region[0] or region[3] <= region[2] or min(region) < 0:
+        msg = f"{source}: [detector] {name} {region} is empty or negative"
+        raise ProfileError(msg)
+    return region
+
+
+def _build(table: dict[str, Any], cls: type, section: str, source: str) -> Any:
+    names = set(cls.__dataclass_fields__)
+    unknown = set(table) - names
+    if unknown:
+        msg = f"{source}: unknown key(s) {sorted(unknown)} in [{section}]; allowed: {sorted(names)}"
+        raise ProfileError(msg)
+    try:
+        return cls(**table)
+    except TypeError as exc:
+        msg = f"{source}: [{section}] is incomplete: {exc}"
+        raise ProfileError(msg) from None
+
+
+def _positive(value: float, what: str, source: str) -> None:
+    if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+        msg = f"{source}: {what} must be a positive number, got {value!r}"
+        raise ProfileError(msg)
+
+
+def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>") -> InstrumentProfile:
+    """Build an :class:`InstrumentProfile` from a parsed TOML document.
+
+    Raises
+    ------
+    ProfileError
+        Naming the source and the offending section or key.
+    """
+    src = str(source)
+    data = dict(data)
+    inst = data.pop("instrument", {})
+    for required in ("grating", "detector"):
+        if required not in data:
+            msg = f"{src}: missing [{required}] section"
+            raise ProfileError(msg)
+    grating = _build(dict(data.pop("grating")), GratingSpec, "grating", src)
+    if grating.mount not in MOUNTS:
+        msg = f"{src}: [grating] mount {grating.mount!r} is not one of {MOUNTS}"
+        raise ProfileError(msg)
+    if grating.order < 1:
+        msg = f"{src}: [grating] order must be a positive integer, got {grating.order}"
+        raise ProfileError(msg)
+    det = dict(data.pop("detector"))
+    det["shape"] = tuple(int(v) for v in det.get("shape", ()))
+    if len(det["shape"]) != 2:
+        msg = f"{src}: [detector] shape must be [rows, columns]"
+        raise ProfileError(msg)
+    det["overscan"] = _region(det.get("overscan"), "overscan", src)
+    det["trim"] = _region(det.get("trim"), "trim", src)
+    detector = _build(det, DetectorSpec, "detector", src)
+    if detector.dispersion_axis not in (0, 1) or detector.wavelength_increases not in (1, -1):
+        msg = f"{src}: [detector] dispersion_axis must be 0 or 1 and wavelength_increases +1 or -1"
+        raise ProfileError(msg)
+    _positive(detector.pixel_size_um, "[detector] pixel_size_um", src)
+    _positive(detector.gain_e_per_adu, "[detector] gain_e_per_adu", src)
+
+    approximate = None
+    if grating.mount == "approximate":
+        if "approximate" not in data:
+            msg = f"{src}: mount 'approximate' needs an [approximate] section"
+            raise ProfileError(msg)
+        approximate = _build(dict(data.pop("approximate")), ApproximateSpec, "approximate", src)
+        _positive(approximate.dispersion_nm_per_px, "[approximate] dispersion_nm_per_px", src)
+        camera = CameraSpec(focal_length_mm=float("nan"))
+        data.pop("camera", None)
+    else:
+        _positive(grating.grooves_per_mm, "[grating] grooves_per_mm", src)
+        if "camera" not in data:
+            msg = f"{src}: missing [camera] section"
+            raise ProfileError(msg)
+        camera = _build(dict(data.pop("camera")), CameraSpec, "camera", src)
+        _positive(camera.focal_length_mm, "[camera] focal_length_mm", src)
+        data.pop("approximate", None)
+
+    priors = _build(dict(data.pop("priors", {})), Priors, "priors", src)
+    header: dict[str, HeaderField] = {}
+    for quantity, spec in dict(data.pop("header", {})).items():
+        if quantity not in HEADER_QUANTITIES:
+            msg = f"{src}: [header] {quantity!r} is not one of {HEADER_QUANTITIES}"
+            raise ProfileError(msg)
+        if isinstance(spec, str):
+            spec = {"keyword": spec}
+        header[quantity] = _build(dict(spec), HeaderField, f"header.{quantity}", src)
+    if grating.mount != "approximate" and "grating_angle" not in header:
+        msg = f"{src}: [header] must map 'grating_angle' (give a default for a fixed grating)"
+        raise ProfileError(msg)
+    if data:
+        msg = f"{src}: unknown section(s) {sorted(data)}"
+        raise ProfileError(msg)
+    medium = inst.get("medium", "air")
+    if medium not in ("air", "vacuum"):
+        msg = f"{src}: [instrument] medium must be 'air' or 'vacuum', got {medium!r}"
+        raise ProfileError(msg)
+    sensitivity = inst.get("sensitivity_nm")
+    return InstrumentProfile(
+        name=str(inst.get("name", Path(src).stem)),
+        medium=medium,
+        grating=grating,
+        camera=camera,
+        detector=detector,
+        priors=priors,
+        header=header,
+        lamps=tuple(inst.get("lamps", ())),
+        approximate=approximate,
+        sensitivity_nm=tuple(float(v) for v in sensitivity) if sensitivity else None,
+        source=Path(src) if src != "<profile>" else None,
+    )
+
+
+def load_profile(path: str | Path) -> InstrumentProfile:
+    """Read an instrument profile from a TOML file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The profile file, or the name of a bundled example profile (see
+        :func:`example_profile_paths`).
+
+    Raises
+    ------
+    ProfileError
+        If the file cannot be read or parsed, or a value is missing or invalid.
+    """
+    path = Path(path)
+    if not path.exists():
+        bundled = example_profile_paths()
+        if path.stem in bundled and path.parent == Path("."):
+            path = bundled[path.stem]
+        else:
+            msg = f"{path}: profile file not found (bundled examples: {sorted(bundled)})"
+            raise ProfileError(msg)
+    try:
+        with path.open("rb") as fh:
+            data = tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        msg = f"{path}: not valid TOML: {exc}"
+        raise ProfileError(msg) from None
+    except OSError as exc:
+        msg = f"{path}: cannot read profile: {exc.strerror}"
+        raise ProfileError(msg) from None
+    return profile_from_dict(data, source=path)
+
+
+def example_profile_paths() -> dict[str, Path]:
+    """The example profiles shipped with wavecal, by name."""
+    from importlib import resources
+
+    folder = resources.files("wavecal.profiles")
+    return {Path(str(p)).stem: Path(str(p)) for p in folder.iterdir() if str(p).endswith(".toml")}

@@ -1,0 +1,1 @@
+"""Example instrument profiles (TOML) for invented instruments."""
