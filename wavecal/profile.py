@@ -102,8 +102,9 @@ class CameraSpec:
 class DetectorSpec:
     """The detector and its read-out.
 
-    Pixel regions use numpy's convention: 0-based, half-open ``[start, stop)`` ranges on the
-    raw (unbinned-as-read) image, as ``(row_start, row_stop, col_start, col_stop)``.
+    Every pixel quantity here is in UNBINNED detector pixels; a binned frame's regions are these
+    divided by its binning. Pixel regions use numpy's convention: 0-based, half-open
+    ``[start, stop)`` ranges as ``(row_start, row_stop, col_start, col_stop)``.
 
     Attributes
     ----------
@@ -121,9 +122,9 @@ class DetectorSpec:
     gain_e_per_adu, read_noise_e : float
         Conversion gain and read noise in electrons.
     overscan : tuple of int or None
-        Overscan region (binned pixels as read), or None when there is none.
+        Overscan region, or None when there is none.
     trim : tuple of int or None
-        Region holding illuminated data (binned pixels as read), or None for the whole frame.
+        Region holding illuminated data, or None for the whole frame.
     bias_adu : float
         Constant bias level to subtract when there is no overscan.
     axis_pixel : float or None
