@@ -217,7 +217,7 @@ class GratingModel:
         t, c = self._grating_terms()
         return (np.sin(np.radians(self.beta(x))) + c) / t
 
-    def pixel(self, wavelength_nm, *, iterations: int = 3):
+    def pixel(self, wavelength_nm, *, iterations: int = 30):
         """0-based pixel where ``wavelength_nm`` lands; NaN if it cannot be diffracted there."""
         t, c = self._grating_terms()
         sin_beta = np.asarray(wavelength_nm, dtype=float) * t - c
@@ -233,7 +233,10 @@ class GratingModel:
         target = self.axis_pixel + self.direction * s / self.pixel_mm
         x = target
         for _ in range(iterations if self.distortion else 0):
+            previous = x
             x = target - self._distortion_shift(x)
+            if np.nanmax(np.abs(x - previous), initial=0.0) < 1e-10:
+                break
         return x
 
     def dispersion(self, x):

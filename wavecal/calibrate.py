@@ -1,0 +1,278 @@
+"""Calibrate one arc frame end to end: frame → spectrum → peaks → identification → fit → solution.
+
+:func:`calibrate_frame` is the single public entry point used by the command line, the
+evaluation scripts and notebooks. Expected failures (too few lines, no significant
+identification) come back as a :class:`~wavecal.solution.Solution` with ``status == "failed"``
+and reasons; bad input (unreadable file, missing header keyword) raises an exception naming the
+file and the problem.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from .extract import Spectrum, extract_spectrum
+from .fit import PHYSICAL_PARAMETERS, FitResult, fit_lines
+from .frames import Frame, read_frame
+from .linelists import LineList, load_line_list
+from .match import Identification, associate, chance_log10_probability, identify_lines
+from .model_setup import PriorBox, nominal_model, prior_box
+from .optics import GratingModel
+from .peaks import PeakTable, find_peaks
+from .profile import InstrumentProfile
+from .solution import SPEED_OF_LIGHT_KMS, Solution
+from .verdict import VerdictInputs, judge
+
+__all__ = ["calibrate_frame", "Calibration", "LINE_UNCERTAINTY_VERIFIED_NM",
+           "LINE_UNCERTAINTY_UNVERIFIED_NM"]
+
+#: Wavelength uncertainty given to line-list values checked against NIST (nm).
+LINE_UNCERTAINTY_VERIFIED_NM = 0.0005
+#: Wavelength uncertainty given to line-list values from memory (nm).
+LINE_UNCERTAINTY_UNVERIFIED_NM = 0.002
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """Everything a calibration produced, for reports and debugging.
+
+    Attributes
+    ----------
+    solution : Solution
+    spectrum : Spectrum
+    peaks : PeakTable
+    identification : Identification
+    fit : FitResult or None
+    nominal : GratingModel
+    box : PriorBox
+    """
+
+    solution: Solution
+    spectrum: Spectrum
+    peaks: PeakTable
+    identification: Identification
+    fit: FitResult | None
+    nominal: GratingModel
+    box: PriorBox
+
+
+def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
+                    lamps: tuple[str, ...] | list[str] | None = None,
+                    grating_angle_deg: float | None = None,
+                    rows: tuple[int, int] | None = None,
+                    min_snr: float = 5.0,
+                    free_grooves: bool = False,
+                    details: bool = False) -> Solution | Calibration:
+    """Find, identify and fit the lines of one arc frame.
+
+    Parameters
+    ----------
+    source : str, Path or Frame
+        A raw FITS arc frame, or an already read :class:`~wavecal.frames.Frame`.
+    profile : InstrumentProfile
+        The instrument.
+    lamps : sequence of str, optional
+        Lamp elements in use; default: from the header through the profile.
+    grating_angle_deg : float, optional
+        Physical grating angle; default: from the header through the profile.
+    rows : (int, int), optional
+        Slit rows to collapse; default: the illuminated rows, found from the frame.
+    min_snr : float
+        Detection threshold of the peak finder (peak signal-to-noise).
+    free_grooves : bool
+        Also fit the groove density (normally fixed by the grating's ruling).
+    details : bool
+        Return a :class:`Calibration` with the intermediate products instead of the solution.
+
+    Returns
+    -------
+    Solution or Calibration
+    """
+    frame = source if isinstance(source, Frame) else read_frame(source, profile)
+    where = frame.path
+    if grating_angle_deg is None:
+        grating_angle_deg = profile.grating_angle_from_header(frame.header, path=where)
+    lamps = tuple(lamps) if lamps else profile.lamps_from_header(frame.header, path=where)
+    if not lamps:
+        msg = f"{where or 'frame'}: no lamp elements in the header or the profile; pass lamps="
+        raise ValueError(msg)
+    nominal = nominal_model(profile, grating_angle_deg, frame.binning)
+    box = prior_box(profile, nominal)
+
+    spectrum = extract_spectrum(frame, rows=rows)
+    peaks = find_peaks(spectrum, min_snr=min_snr)
+    line_list = load_line_list(lamps, medium=profile.medium)
+    lo, hi = _reachable_range(nominal, box)
+    in_range = line_list.in_range(lo, hi)
+
+    table = peaks.table
+    x = table["x"].to_numpy(float)
+    x_err = table["x_err"].to_numpy(float)
+    fwhm = float(peaks.fwhm_typical) if np.isfinite(peaks.fwhm_typical) else 3.0
+    ident = identify_lines(nominal, box, x, in_range.wavelength_nm,
+                           vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
+    fit = None
+    if ident.best is None:
+        solution = _failed(profile, frame, lamps, table, ident.notes or ("no identification",))
+    else:
+        solution, fit = _fit_and_judge(profile, frame, lamps, table, in_range, line_list,
+                                       ident, box, fwhm, free_grooves)
+    if details:
+        return Calibration(solution, spectrum, peaks, ident, fit, nominal, box)
+    return solution
+
+
+def _reachable_range(model: GratingModel, box: PriorBox) -> tuple[float, float]:
+    """Wavelengths that can reach the detector anywhere within the prior box."""
+    (phi, dphi), (f, df) = box.grating_angle_deg, box.focal_length_mm
+    edges = np.array([-0.02, 1.02]) * (model.n_pixels - 1)
+    lams = [model.with_parameters(grating_angle_deg=phi + a, focal_length_mm=f + b).wavelength(edges)
+            for a in (-dphi, dphi) for b in (-df, df)]
+    lams = np.concatenate(lams)
+    return float(np.nanmin(lams)), float(np.nanmax(lams))
+
+
+def _line_sigma(lines: LineList) -> np.ndarray:
+    return np.where(lines.verified, LINE_UNCERTAINTY_VERIFIED_NM, LINE_UNCERTAINTY_UNVERIFIED_NM)
+
+
+def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: LineList,
+                   ident: Identification, box: PriorBox, fwhm: float, free_grooves: bool):
+    x = table["x"].to_numpy(float)
+    x_err = table["x_err"].to_numpy(float)
+    lam = lines.wavelength_nm
+    lam_err = _line_sigma(lines)
+    model = ident.best.model
+    assoc = ident.best.association
+    assoc_tol = ident.best.tolerance_px
+    fit, fitted, tolerance = None, assoc, assoc_tol
+    for _ in range(4):
+        if np.count_nonzero(~assoc.crowded) < 3:
+            break
+        fit = fit_lines(model, box, x[assoc.peak], x_err[assoc.peak], lam[assoc.line],
+                        lam_err[assoc.line], fit_mask=~assoc.crowded, free_grooves=free_grooves)
+        model, fitted, tolerance = fit.model, assoc, assoc_tol
+        assoc_tol = float(np.clip(5.0 * fit.rms_px, 0.3, ident.best.tolerance_px))
+        new = associate(model, x, lam, assoc_tol, blend_px=max(fwhm, 1.0))
+        if np.array_equal(new.peak, assoc.peak) and np.array_equal(new.line, assoc.line):
+            break
+        assoc = new
+    if fit is None:
+        return _failed(profile, frame, lamps, table, ("too few unblended lines identified",)), None
+    pairs_peak, pairs_line, crowded = fitted.peak, fitted.line, fitted.crowded
+
+    used_peaks = pairs_peak[fit.used]
+    density = max(np.count_nonzero((model.pixel(lam) >= 0) & (model.pixel(lam) <= model.n_pixels - 1)), 1) \
+        / model.n_pixels
+    log10_chance = chance_log10_probability(len(pairs_peak), x.size, density, tolerance,
+                                            n_free=2 + max(fit.distortion_degree - 2, 0))
+    priors = box.as_dict()
+    shifts = {n: (getattr(model, n) - priors[n][0]) / priors[n][1] for n in PHYSICAL_PARAMETERS}
+    runner = ident.runner_up
+    verdict = judge(VerdictInputs(
+        n_used=fit.n_used, used_x=x[used_peaks], n_pixels=model.n_pixels, rms_px=fit.rms_px,
+        redchi=fit.redchi, log10_chance=log10_chance, log10_trials=ident.log10_trials,
+        ambiguous=ident.ambiguous, runner_up_matches=runner.n_matched if runner else 0,
+        best_matches=ident.best.n_matched, prior_shifts=shifts, fit_success=fit.success,
+        effective_geometry=box.effective))
+
+    lines_df = _line_table(table, model, lines, full_list, pairs_peak, pairs_line, fit.used,
+                           crowded, fwhm)
+    used_lam = lam[pairs_line[fit.used]]
+    rms_nm = float(np.sqrt(np.mean((model.wavelength(x[used_peaks]) - used_lam) ** 2))) \
+        if used_peaks.size else math.nan
+    rms_kms = float(np.sqrt(np.mean(((model.wavelength(x[used_peaks]) - used_lam) / used_lam
+                                     * SPEED_OF_LIGHT_KMS) ** 2))) if used_peaks.size else math.nan
+    parameters = []
+    for name, value, error in zip(fit.names, fit.values, fit.errors):
+        nominal, width = priors.get(name, (math.nan, math.nan))
+        parameters.append({"name": name, "value": float(value), "error": float(error),
+                           "nominal": float(nominal), "prior": float(width),
+                           "shift_sigma": float((value - nominal) / width) if width == width else math.nan})
+    statistics = {
+        "rms_px": fit.rms_px, "rms_nm": rms_nm, "rms_kms": rms_kms, "redchi": fit.redchi,
+        "n_used": fit.n_used, "n_rejected": int(np.count_nonzero(~fit.used & ~crowded)),
+        "n_blends": int(np.count_nonzero(crowded)), "n_peaks": int(x.size),
+        "n_identified": int(len(pairs_peak)), "distortion_degree": fit.distortion_degree,
+        "log10_chance": log10_chance, "log10_trials": ident.log10_trials,
+        "runner_up_matches": runner.n_matched if runner else 0,
+        "association_tolerance_px": tolerance, "effective_geometry": box.effective,
+    }
+    used_x = x[used_peaks]
+    solution = Solution(
+        status=verdict.status, reasons=verdict.reasons, medium=profile.medium, model=model,
+        lines=lines_df, parameters=tuple(parameters),
+        correlation={"names": fit.names, "matrix": fit.correlation}, covariance=fit.covariance,
+        statistics=statistics,
+        covered_range_px=(float(used_x.min()), float(used_x.max())) if used_x.size else (math.nan, math.nan),
+        frame=str(frame.path) if frame.path else None, profile=profile.name, lamps=tuple(lamps),
+        dispersion_axis=profile.detector.dispersion_axis, software_version=__version__)
+    return solution, fit
+
+
+def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_list: LineList,
+                pairs_peak, pairs_line, used, crowded, fwhm: float) -> pd.DataFrame:
+    x = table["x"].to_numpy(float)
+    n = x.size
+    out = pd.DataFrame({
+        "x": x, "x_err": table["x_err"].to_numpy(float), "fwhm": table["fwhm"].to_numpy(float),
+        "flux": table["flux"].to_numpy(float), "snr": table["snr"].to_numpy(float),
+        "flags": table["flags"].to_numpy(int),
+    })
+    ident = np.full(n, "unidentified", dtype=object)
+    element = np.full(n, "", dtype=object)
+    line_wl = np.full(n, np.nan)
+    line_int = np.full(n, np.nan)
+    verified = np.zeros(n, bool)
+    ident[pairs_peak] = np.where(crowded, "blend", np.where(used, "used", "rejected"))
+    element[pairs_peak] = lines.element[pairs_line]
+    line_wl[pairs_peak] = lines.wavelength_nm[pairs_line]
+    line_int[pairs_peak] = lines.intensity[pairs_line]
+    verified[pairs_peak] = lines.verified[pairs_line]
+    # unidentified peaks that sit where a listed line would appear in twice the order
+    rest = np.setdiff1d(np.arange(n), pairs_peak)
+    if rest.size:
+        ghost_model = model.with_parameters(order=2 * model.order)
+        ghosts = associate(ghost_model, x[rest], full_list.wavelength_nm, max(0.5, 0.3 * fwhm))
+        idx = rest[ghosts.peak]
+        ident[idx] = "ghost"
+        element[idx] = full_list.element[ghosts.line]
+        line_wl[idx] = full_list.wavelength_nm[ghosts.line]
+        line_int[idx] = full_list.intensity[ghosts.line]
+        verified[idx] = full_list.verified[ghosts.line]
+    fit_wl = model.wavelength(x)
+    residual_px = np.full(n, np.nan)
+    first_order = np.isin(ident, ["used", "rejected", "blend"])
+    residual_px[first_order] = x[first_order] - model.pixel(line_wl[first_order])
+    residual_nm = np.where(first_order, fit_wl - line_wl, np.nan)
+    out["identification"] = ident
+    out["element"] = element
+    out["line_wavelength"] = line_wl
+    out["line_intensity"] = line_int
+    out["line_verified"] = verified
+    out["wavelength_fit"] = fit_wl
+    out["residual_px"] = residual_px
+    out["residual_nm"] = residual_nm
+    out["residual_kms"] = residual_nm / line_wl * SPEED_OF_LIGHT_KMS
+    return out
+
+
+def _failed(profile, frame, lamps, table: pd.DataFrame, reasons) -> Solution:
+    lines = pd.DataFrame({
+        "x": table["x"].to_numpy(float), "x_err": table["x_err"].to_numpy(float),
+        "fwhm": table["fwhm"].to_numpy(float), "flux": table["flux"].to_numpy(float),
+        "snr": table["snr"].to_numpy(float), "flags": table["flags"].to_numpy(int),
+        "identification": "unidentified", "element": "", "line_wavelength": np.nan,
+        "line_intensity": np.nan, "line_verified": False, "wavelength_fit": np.nan,
+        "residual_px": np.nan, "residual_nm": np.nan, "residual_kms": np.nan,
+    })
+    return Solution(status="failed", reasons=tuple(reasons), medium=profile.medium, model=None,
+                    lines=lines, statistics={"n_peaks": int(len(table)), "n_used": 0},
+                    frame=str(frame.path) if frame.path else None, profile=profile.name,
+                    lamps=tuple(lamps), dispersion_axis=profile.detector.dispersion_axis,
+                    software_version=__version__)

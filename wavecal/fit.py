@@ -1,0 +1,234 @@
+"""The lmfit model: physical parameters of the spectrograph fitted to identified lines.
+
+Free parameters: grating angle, camera focal length, the pixel where the camera axis meets the
+detector ("detector offset") and the detector tilt, each with a Gaussian prior centred on its
+nominal value (width: the profile's prior half-width); the groove density is fixed unless asked
+for. A distortion term (Legendre polynomial of degree 3 and up in pixel position; lower degrees are
+already spanned by offset, focal length and tilt) is added with the degree that minimises the
+Bayesian information criterion. Residuals are weighted by the peak-centre uncertainty combined with
+the line-list wavelength uncertainty. Outliers are rejected iteratively with a robust (MAD) scale.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import lmfit
+import numpy as np
+
+from .model_setup import PriorBox
+from .optics import GratingModel
+
+__all__ = ["FitResult", "fit_lines", "PHYSICAL_PARAMETERS"]
+
+#: Physical parameters fitted, with their GratingModel attribute names.
+PHYSICAL_PARAMETERS = ("grating_angle_deg", "focal_length_mm", "axis_pixel", "tilt_deg")
+
+_DISTORTION_DEGREES = (0, 3, 4, 5)  # 0 means no distortion term
+
+
+@dataclass(frozen=True)
+class FitResult:
+    """Result of fitting the physical model to identified lines.
+
+    Attributes
+    ----------
+    model : GratingModel
+        Best-fit model.
+    names : tuple of str
+        Names of the varied parameters, in covariance order.
+    values, errors : ndarray
+        Best-fit values and 1-sigma uncertainties (covariance scaled by the reduced χ² when
+        it exceeds 1, never shrunk below the formal errors).
+    covariance, correlation : ndarray
+        Of the varied parameters (NaN if the fit could not estimate them).
+    used : ndarray of bool
+        Which of the input pairs were kept (not rejected as outliers).
+    residual_px : ndarray
+        Observed minus model position for every input pair (pixels).
+    normalized_residual : ndarray
+        ``residual_px`` divided by its total uncertainty.
+    chisqr, redchi, bic : float
+        Of the data part, over kept pairs (priors excluded from ``redchi``).
+    distortion_degree : int
+        Highest Legendre degree of the distortion term, 0 for none.
+    success : bool
+    message : str
+    """
+
+    model: GratingModel
+    names: tuple[str, ...]
+    values: np.ndarray
+    errors: np.ndarray
+    covariance: np.ndarray
+    correlation: np.ndarray
+    used: np.ndarray
+    residual_px: np.ndarray
+    normalized_residual: np.ndarray
+    chisqr: float
+    redchi: float
+    bic: float
+    distortion_degree: int
+    success: bool
+    message: str
+
+    @property
+    def n_used(self) -> int:
+        """Number of lines in the final fit."""
+        return int(np.count_nonzero(self.used))
+
+    @property
+    def rms_px(self) -> float:
+        """Unweighted RMS of the kept residuals (pixels)."""
+        r = self.residual_px[self.used]
+        return float(np.sqrt(np.mean(r**2))) if r.size else float("nan")
+
+    def parameter_table(self) -> list[dict]:
+        """One dict per varied parameter: name, value, error."""
+        return [{"name": n, "value": float(v), "error": float(e)}
+                for n, v, e in zip(self.names, self.values, self.errors)]
+
+
+def _model_from(params: lmfit.Parameters, base: GratingModel, degree: int) -> GratingModel:
+    changes = {name: params[name].value for name in PHYSICAL_PARAMETERS}
+    if "grooves_per_mm" in params:
+        changes["grooves_per_mm"] = params["grooves_per_mm"].value
+    changes["distortion"] = (tuple([0.0, 0.0, 0.0] + [params[f"distortion_{k}"].value
+                                                      for k in range(3, degree + 1)])
+                             if degree else ())
+    return base.with_parameters(**changes)
+
+
+def _make_params(start: GratingModel, box: PriorBox, degree: int, free_grooves: bool) -> lmfit.Parameters:
+    params = lmfit.Parameters()
+    for name in PHYSICAL_PARAMETERS:
+        params.add(name, value=float(getattr(start, name)))
+    if free_grooves:
+        params.add("grooves_per_mm", value=start.grooves_per_mm)
+    current = list(start.distortion) + [0.0] * 6
+    for k in range(3, degree + 1):
+        params.add(f"distortion_{k}", value=float(current[k]))
+    return params
+
+
+def _single_fit(start: GratingModel, box: PriorBox, x, lam, sigma_px, degree: int,
+                free_grooves: bool, grooves_prior: tuple[float, float] | None):
+    priors = box.as_dict()
+    disp = np.abs(start.dispersion(x))
+
+    def residual(params):
+        model = _model_from(params, start, degree)
+        data = (model.wavelength(x) - lam) / (disp * sigma_px)
+        prior = [(params[n].value - priors[n][0]) / priors[n][1] for n in PHYSICAL_PARAMETERS]
+        if grooves_prior is not None:
+            prior.append((params["grooves_per_mm"].value - grooves_prior[0]) / grooves_prior[1])
+        return np.r_[data, prior]
+
+    params = _make_params(start, box, degree, free_grooves)
+    minimizer = lmfit.Minimizer(residual, params, scale_covar=False, nan_policy="raise")
+    return minimizer.leastsq(), _model_from
+
+
+def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarray,
+              wavelength_nm: np.ndarray, wavelength_err_nm: np.ndarray, *,
+              free_grooves: bool = False, grooves_prior_fraction: float = 0.01,
+              fit_mask: np.ndarray | None = None, clip: float = 4.0,
+              max_distortion_degree: int = 5) -> FitResult:
+    """Fit the physical model to identified lines.
+
+    Parameters
+    ----------
+    start : GratingModel
+        Starting model (e.g. from the identification step).
+    box : PriorBox
+        Priors on the physical parameters.
+    x, x_err : ndarray
+        Peak centres and their 1-sigma uncertainties (pixels).
+    wavelength_nm, wavelength_err_nm : ndarray
+        Listed wavelengths of the identified lines and their uncertainties.
+    free_grooves : bool
+        Also fit the groove density (with a prior of ``grooves_prior_fraction``).
+    fit_mask : ndarray of bool, optional
+        Pairs allowed into the fit (e.g. excluding blends); others get residuals only.
+    clip : float
+        Outlier threshold in robust standard deviations.
+    max_distortion_degree : int
+        Highest distortion degree tried (0 disables the term).
+
+    Returns
+    -------
+    FitResult
+    """
+    x = np.asarray(x, float)
+    lam = np.asarray(wavelength_nm, float)
+    disp = np.abs(start.dispersion(x))
+    sigma_px = np.hypot(np.asarray(x_err, float), np.asarray(wavelength_err_nm, float) / disp)
+    allowed = np.ones(x.size, bool) if fit_mask is None else np.asarray(fit_mask, bool).copy()
+    grooves_prior = (start.grooves_per_mm, start.grooves_per_mm * grooves_prior_fraction) \
+        if free_grooves else None
+    n_base = len(PHYSICAL_PARAMETERS) + int(free_grooves)
+
+    def run(model, degree, keep):
+        result, build = _single_fit(model, box, x[keep], lam[keep], sigma_px[keep], degree,
+                                    free_grooves, grooves_prior)
+        return result, build(result.params, model, degree)
+
+    def clip_pass(model, degree, keep):
+        for _ in range(6):
+            if np.count_nonzero(keep) < n_base + degree + 1:
+                break
+            result, model = run(model, degree, keep)
+            norm = (x - model.pixel(lam)) / sigma_px
+            scale = max(1.4826 * np.median(np.abs(norm[keep] - np.median(norm[keep]))), 1.0)
+            new_keep = allowed & (np.abs(norm) <= clip * scale)
+            if np.array_equal(new_keep, keep):
+                break
+            keep = new_keep
+        return model, keep
+
+    degrees = [d for d in _DISTORTION_DEGREES if d <= max_distortion_degree]
+    keep = allowed.copy()
+    mid_degree = 3 if 3 in degrees and np.count_nonzero(keep) >= n_base + 3 + 4 else 0
+    model, keep = clip_pass(start, mid_degree, keep)
+
+    best = None
+    for degree in degrees:
+        n_par = n_base + max(degree - 2, 0)
+        if np.count_nonzero(keep) < n_par + 3:
+            continue
+        result, fitted = run(model, degree, keep)
+        n_data = np.count_nonzero(keep)
+        chisqr = float(np.sum(result.residual[:n_data] ** 2))
+        bic = chisqr + n_par * np.log(n_data)
+        if best is None or bic < best[0] - 2.0:  # a more complex model must earn its place
+            best = (bic, degree)
+    degree = best[1] if best else 0
+    model, keep = clip_pass(model.with_parameters(distortion=()) if degree == 0 else model,
+                            degree, keep)
+    result, model = run(model, degree, keep)
+    return _summarise(result, model, x, lam, sigma_px, keep, degree, n_base)
+
+
+def _summarise(result, model, x, lam, sigma_px, keep, degree, n_base) -> FitResult:
+    names = tuple(result.var_names)
+    values = np.array([result.params[n].value for n in names])
+    n_data = int(np.count_nonzero(keep))
+    chisqr = float(np.sum(result.residual[:n_data] ** 2))
+    n_par = n_base + max(degree - 2, 0)
+    dof = max(n_data - n_par, 1)
+    redchi = chisqr / dof
+    if result.covar is not None and np.all(np.isfinite(result.covar)):
+        cov = np.array(result.covar) * max(redchi, 1.0)
+        errors = np.sqrt(np.clip(np.diag(cov), 0, None))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            corr = cov / np.outer(errors, errors)
+    else:
+        cov = np.full((len(names), len(names)), np.nan)
+        errors = np.full(len(names), np.nan)
+        corr = cov.copy()
+    residual = x - model.pixel(lam)
+    bic = chisqr + n_par * np.log(max(n_data, 1))
+    return FitResult(model=model, names=names, values=values, errors=errors, covariance=cov,
+                     correlation=corr, used=keep, residual_px=residual,
+                     normalized_residual=residual / sigma_px, chisqr=chisqr, redchi=redchi,
+                     bic=float(bic), distortion_degree=degree, success=bool(result.success),
+                     message=str(result.message))

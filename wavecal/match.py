@@ -1,0 +1,404 @@
+"""Blind line identification: a hypothesis search over the physical parameters, then consensus.
+
+The method, in three steps (documented in the README, "How lines are identified"):
+
+1. **Voting (a Hough transform over the grating equation).** For a grid of camera focal lengths
+   across the prior, every pair (observed peak, listed line) fixes the grating angle at which that
+   line would land on that peak. Each pair votes for its angle; correct pairs pile up at the true
+   angle while chance pairs spread evenly. The best-voted (angle, focal length) cells are the
+   hypotheses. Observed peak heights are not used, so lamp-to-list intensity differences do not
+   matter.
+2. **Consensus (RANSAC-style refinement).** Each hypothesis is refined by alternating association
+   (each peak to the nearest predicted line within a tolerance, one-to-one) and a least-squares
+   fit of the physical parameters with their priors, while the tolerance shrinks. Its consensus
+   is the number of peaks it explains at the final tolerance.
+3. **Significance and ambiguity.** A hypothesis is only accepted when its consensus is far above
+   what chance coincidences with the line list would give (a binomial tail with a trials factor
+   for the search and for the fitted parameters). Distinct runner-up solutions with nearly as
+   much consensus make the identification ambiguous.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import optimize, stats
+
+from .model_setup import PriorBox
+from .optics import GratingModel
+
+__all__ = ["Association", "Hypothesis", "Identification", "associate", "identify_lines",
+           "chance_log10_probability"]
+
+#: Coincidences the refinement can buy beyond the searched grid (tilt and offset within their
+#: priors); the searched grating angle and focal length are paid for by the trials factor.
+_SEARCH_SLACK_PARAMETERS = 2
+
+#: Parameters the consensus step may adjust, in the order they are freed.
+_STAGE_PARAMETERS = (
+    ("grating_angle_deg", "focal_length_mm"),
+    ("grating_angle_deg", "focal_length_mm", "tilt_deg"),
+    ("grating_angle_deg", "focal_length_mm", "tilt_deg", "axis_pixel"),
+)
+
+
+@dataclass(frozen=True)
+class Association:
+    """One-to-one pairing of observed peaks with listed lines under a model.
+
+    Attributes
+    ----------
+    peak : ndarray of int
+        Index of each paired peak.
+    line : ndarray of int
+        Index of its line in the line list.
+    offset_px : ndarray of float
+        Observed minus predicted position (pixels).
+    crowded : ndarray of bool
+        Another listed line lies within the blend distance of the paired line's position.
+    """
+
+    peak: np.ndarray
+    line: np.ndarray
+    offset_px: np.ndarray
+    crowded: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.peak.size)
+
+
+@dataclass(frozen=True)
+class Hypothesis:
+    """A refined identification hypothesis.
+
+    Attributes
+    ----------
+    model : GratingModel
+        The physical model after refinement (no distortion term).
+    association : Association
+        Peaks explained at the final tolerance.
+    tolerance_px : float
+        Final association tolerance.
+    log10_chance : float
+        log10 of the probability that chance coincidences explain as many peaks.
+    """
+
+    model: GratingModel
+    association: Association
+    tolerance_px: float
+    log10_chance: float
+
+    @property
+    def n_matched(self) -> int:
+        """Number of peaks explained."""
+        return len(self.association)
+
+    @property
+    def rms_px(self) -> float:
+        """RMS of the association offsets (pixels)."""
+        off = self.association.offset_px
+        return float(np.sqrt(np.mean(off**2))) if off.size else float("nan")
+
+
+@dataclass(frozen=True)
+class Identification:
+    """Outcome of the blind search.
+
+    Attributes
+    ----------
+    best : Hypothesis or None
+        The hypothesis with the largest consensus, None when no hypothesis survived.
+    runner_up : Hypothesis or None
+        The best hypothesis that disagrees with ``best`` by more than a pixel somewhere on the
+        detector.
+    n_candidates : int
+        Hypotheses refined.
+    log10_trials : float
+        log10 of the number of independent hypotheses the search examined.
+    """
+
+    best: Hypothesis | None
+    runner_up: Hypothesis | None
+    n_candidates: int
+    log10_trials: float
+    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def ambiguous(self) -> bool:
+        """True when a distinct solution explains nearly as many peaks as the best one."""
+        if self.best is None or self.runner_up is None:
+            return False
+        n_best, n_alt = self.best.n_matched, self.runner_up.n_matched
+        return n_alt >= n_best - max(2, int(np.ceil(0.2 * n_best)))
+
+
+def chance_log10_probability(n_matched: int, n_peaks: int, line_density: float,
+                             tolerance_px: float, n_free: int) -> float:
+    """log10 probability that ``n_matched`` of ``n_peaks`` peaks fall within the tolerance of a
+    listed line by chance.
+
+    Parameters
+    ----------
+    n_matched, n_peaks : int
+        Peaks explained, peaks available.
+    line_density : float
+        Listed lines per pixel on the detector.
+    tolerance_px : float
+        Half-width of the association window.
+    n_free : int
+        Parameters adjusted to the data; each may buy one coincidence, so that many matches are
+        discounted.
+    """
+    p = 1.0 - np.exp(-2.0 * tolerance_px * max(line_density, 1e-12))
+    k = max(n_matched - n_free, 0)
+    if k == 0:
+        return 0.0
+    return float(stats.binom.logsf(k - 1, n_peaks, p) / np.log(10))
+
+
+def associate(model: GratingModel, x: np.ndarray, lines_nm: np.ndarray, tolerance_px: float,
+              *, blend_px: float = 0.0) -> Association:
+    """Pair each peak with the nearest predicted line within ``tolerance_px``, one-to-one.
+
+    Parameters
+    ----------
+    model : GratingModel
+        Model predicting line positions.
+    x : ndarray
+        Peak centres (pixels).
+    lines_nm : ndarray
+        Listed wavelengths, sorted.
+    tolerance_px : float
+        Largest accepted |observed − predicted| (pixels).
+    blend_px : float
+        Lines closer than this to another listed line are marked ``crowded``.
+    """
+    predicted = model.pixel(lines_nm)
+    finite = np.isfinite(predicted)
+    pred_idx = np.flatnonzero(finite)
+    empty = Association(np.empty(0, int), np.empty(0, int), np.empty(0), np.empty(0, bool))
+    if pred_idx.size == 0 or x.size == 0:
+        return empty
+    order = np.argsort(predicted[pred_idx])
+    pos = predicted[pred_idx][order]
+    idx = pred_idx[order]
+    j = np.clip(np.searchsorted(pos, x), 1, pos.size - 1) if pos.size > 1 else np.zeros(x.size, int)
+    if pos.size > 1:
+        left_closer = np.abs(x - pos[j - 1]) <= np.abs(x - pos[j])
+        j = np.where(left_closer, j - 1, j)
+    offset = x - pos[j]
+    ok = np.abs(offset) <= tolerance_px
+    peak = np.flatnonzero(ok)
+    if peak.size == 0:
+        return empty
+    slot = j[ok]
+    off = offset[ok]
+    # one-to-one: where several peaks claim one line keep the closest
+    keep = np.ones(peak.size, bool)
+    order2 = np.lexsort((np.abs(off), slot))
+    s_sorted = slot[order2]
+    dup = np.r_[False, s_sorted[1:] == s_sorted[:-1]]
+    keep[order2[dup]] = False
+    peak, slot, off = peak[keep], slot[keep], off[keep]
+    gaps = np.diff(pos)
+    nearest_gap = np.minimum(np.r_[np.inf, gaps], np.r_[gaps, np.inf])
+    crowded = nearest_gap[slot] < blend_px
+    return Association(peak=peak, line=idx[slot], offset_px=off, crowded=crowded)
+
+
+def _vote_grid(model: GratingModel, box: PriorBox, n_pixels: int, tolerance_px: float):
+    """Focal lengths to scan and the grating-angle bin width worth one pixel."""
+    f0, df = box.focal_length_mm
+    rel_step = 2.0 * tolerance_px / max(n_pixels, 16)
+    n_half = int(np.ceil((df / f0) / rel_step))
+    focal = f0 * (1.0 + rel_step * np.arange(-n_half, n_half + 1))
+    centre = 0.5 * (n_pixels - 1)
+    dlam_dx = abs(float(model.dispersion(centre)))
+    h = 1e-4
+    dlam_dphi = abs(float(model.with_parameters(grating_angle_deg=model.grating_angle_deg + h)
+                          .wavelength(centre) - model.wavelength(centre))) / h
+    deg_per_px = dlam_dx / max(dlam_dphi, 1e-12)
+    return focal, deg_per_px
+
+
+def _votes_for_focal(model: GratingModel, x: np.ndarray, lines_nm: np.ndarray,
+                     phi_samples: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Grating angles at which each listed line would land on each peak (all crossings)."""
+    curves = model.with_parameters(grating_angle_deg=phi_samples[:, None]).wavelength(x[None, :])
+    lo = np.minimum(curves[:-1], curves[1:])  # (segments, peaks)
+    hi = np.maximum(curves[:-1], curves[1:])
+    i_lo = np.searchsorted(lines_nm, lo, side="left")
+    i_hi = np.searchsorted(lines_nm, hi, side="right")
+    counts = (i_hi - i_lo).ravel()
+    total = int(counts.sum())
+    if total == 0:
+        return np.empty(0), np.empty(0, int)
+    seg_idx = np.repeat(np.arange(counts.size), counts)
+    first = np.repeat(i_lo.ravel(), counts)
+    within = np.arange(total) - np.repeat(np.cumsum(counts) - counts, counts)
+    line_idx = first + within
+    seg, peak = np.divmod(seg_idx, x.size)
+    lam0 = curves[seg, peak]
+    lam1 = curves[seg + 1, peak]
+    frac = (lines_nm[line_idx] - lam0) / np.where(lam1 != lam0, lam1 - lam0, 1.0)
+    phi = phi_samples[seg] + frac * (phi_samples[seg + 1] - phi_samples[seg])
+    return phi, peak
+
+
+def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray,
+                n_pixels: int, *, tolerance_px: float, max_candidates: int):
+    """Best-voted (grating angle, focal length) cells, strongest first."""
+    focal, deg_per_px = _vote_grid(model, box, n_pixels, tolerance_px)
+    phi0, dphi = box.grating_angle_deg
+    lo, hi = phi0 - 1.02 * dphi, phi0 + 1.02 * dphi
+    bin_width = deg_per_px * tolerance_px
+    n_bins = max(int(np.ceil((hi - lo) / bin_width)), 1)
+    phi_samples = np.linspace(lo, hi, 48)
+    window = np.ones(3)
+    found = []
+    for f in focal:
+        trial = model.with_parameters(focal_length_mm=float(f))
+        phi, peak = _votes_for_focal(trial, x, lines_nm, phi_samples)
+        if phi.size == 0:
+            continue
+        b = np.floor((phi - lo) / bin_width).astype(int)
+        ok = (b >= 0) & (b < n_bins)
+        # one vote per peak per bin
+        key = np.unique(b[ok] * x.size + peak[ok])
+        hist = np.bincount(key // x.size, minlength=n_bins).astype(float)
+        smooth = np.convolve(hist, window, mode="same")
+        top = np.argpartition(smooth, -3)[-3:] if smooth.size > 3 else np.arange(smooth.size)
+        for t in top:
+            found.append((smooth[t], lo + (t + 0.5) * bin_width, float(f)))
+    found.sort(key=lambda c: -c[0])
+    chosen: list[tuple[float, float, float]] = []
+    for score, phi, f in found:
+        if all(abs(phi - p) > 4 * bin_width or abs(f / g - 1) > 4 * 2 * tolerance_px / n_pixels
+               for _, p, g in chosen):
+            chosen.append((score, phi, f))
+        if len(chosen) >= max_candidates:
+            break
+    n_trials = n_bins * focal.size / 3.0
+    return chosen, float(np.log10(max(n_trials, 1.0)))
+
+
+def _fit_parameters(model: GratingModel, x: np.ndarray, lines: np.ndarray, names: tuple[str, ...],
+                    box: PriorBox) -> GratingModel:
+    """Least-squares fit of ``names`` to paired positions, with Gaussian priors (pixel units)."""
+    priors = box.as_dict()
+    start = np.array([getattr(model, n) for n in names], dtype=float)
+    scale = np.array([priors[n][1] for n in names], dtype=float)
+    nominal = np.array([priors[n][0] for n in names], dtype=float)
+    disp = np.abs(model.dispersion(x))
+
+    def residuals(p):
+        trial = model.with_parameters(**dict(zip(names, p * scale + nominal)))
+        data = (trial.wavelength(x) - lines) / disp
+        return np.r_[data, p]
+
+    p0 = (start - nominal) / scale
+    try:
+        result = optimize.least_squares(residuals, p0, method="lm", x_scale=1.0, max_nfev=200)
+        values = result.x * scale + nominal
+    except (ValueError, np.linalg.LinAlgError):
+        return model
+    if not np.all(np.isfinite(values)):
+        return model
+    return model.with_parameters(**dict(zip(names, (float(v) for v in values))))
+
+
+def _refine(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray,
+            schedule: tuple[float, ...], blend_px: float) -> tuple[GratingModel, Association]:
+    assoc = associate(model, x, lines_nm, schedule[0], blend_px=blend_px)
+    for stage, tol in enumerate(schedule):
+        assoc = associate(model, x, lines_nm, tol, blend_px=blend_px)
+        if len(assoc) < 2:
+            break
+        names = _STAGE_PARAMETERS[min(stage, len(_STAGE_PARAMETERS) - 1)]
+        model = _fit_parameters(model, x[assoc.peak], lines_nm[assoc.line], names, box)
+    assoc = associate(model, x, lines_nm, schedule[-1], blend_px=blend_px)
+    return model, assoc
+
+
+def _is_rival(best: Hypothesis, other: Hypothesis, n_pixels: int) -> bool:
+    """True when ``other`` is a different identification, not a variant of ``best``.
+
+    A variant shares most of its (peak, line) pairs with ``best``; a rival names the peaks
+    differently and disagrees with ``best`` by more than a pixel on the detector.
+    """
+    if other.n_matched == 0:
+        return False
+    shared = np.intersect1d(best.association.peak * 100003 + best.association.line,
+                            other.association.peak * 100003 + other.association.line).size
+    if shared >= 0.5 * other.n_matched:
+        return False
+    grid = np.linspace(0, n_pixels - 1, 33)
+    disagreement = np.abs(other.model.pixel(best.model.wavelength(grid)) - grid)
+    return bool(np.nanmax(disagreement, initial=0.0) > 1.0)
+
+
+def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray, *,
+                   vote_weight: np.ndarray | None = None, fwhm_px: float = 3.0,
+                   max_vote_peaks: int = 80, max_candidates: int = 6,
+                   final_tolerance_px: float = 1.0) -> Identification:
+    """Identify observed peaks with listed lines, blindly, within the prior box.
+
+    Parameters
+    ----------
+    model : GratingModel
+        Nominal model of the frame (sets everything the search does not vary).
+    box : PriorBox
+        Nominal values and search half-widths.
+    x : ndarray
+        Peak centres, 0-based pixels along the dispersion axis.
+    lines_nm : ndarray
+        Listed wavelengths (sorted), in the medium of the model.
+    vote_weight : ndarray, optional
+        Ranking of peaks (e.g. S/N); the strongest ``max_vote_peaks`` vote.
+    fwhm_px : float
+        Typical line width; listed lines closer than this are unresolved blends.
+    final_tolerance_px : float
+        Association tolerance of the last consensus stage.
+
+    Returns
+    -------
+    Identification
+    """
+    x = np.asarray(x, dtype=float)
+    lines_nm = np.sort(np.asarray(lines_nm, dtype=float))
+    n_pixels = model.n_pixels
+    notes = []
+    if x.size < 3 or lines_nm.size < 3:
+        notes.append(f"too few peaks ({x.size}) or listed lines in range ({lines_nm.size}) to search")
+        return Identification(None, None, 0, 0.0, tuple(notes))
+    voters = np.arange(x.size)
+    if vote_weight is not None and x.size > max_vote_peaks:
+        voters = np.sort(np.argsort(vote_weight)[-max_vote_peaks:])
+    vote_tol = 2.0 if not box.effective else 3.0
+    chosen, log10_trials = _candidates(model, box, x[voters], lines_nm, n_pixels,
+                                       tolerance_px=vote_tol, max_candidates=max_candidates)
+    schedule = (8.0 * vote_tol, 4.0 * vote_tol, 2.0 * vote_tol, vote_tol,
+                max(final_tolerance_px, 0.25))
+    blend_px = max(fwhm_px, 1.0)
+    refined: list[Hypothesis] = []
+    for _, phi, f in chosen:
+        start = model.with_parameters(grating_angle_deg=phi, focal_length_mm=f)
+        fitted, assoc = _refine(start, box, x, lines_nm, schedule, blend_px)
+        density = _line_density(fitted, lines_nm, n_pixels)
+        log10_p = chance_log10_probability(len(assoc), x.size, density, schedule[-1],
+                                           n_free=_SEARCH_SLACK_PARAMETERS)
+        refined.append(Hypothesis(fitted, assoc, schedule[-1], log10_p))
+    if not refined:
+        notes.append("no grating angle within the prior puts listed lines on the peaks")
+        return Identification(None, None, 0, log10_trials, tuple(notes))
+    refined.sort(key=lambda h: (-h.n_matched, h.rms_px))
+    best = refined[0]
+    runner_up = next((h for h in refined[1:] if _is_rival(best, h, n_pixels)), None)
+    return Identification(best, runner_up, len(refined), log10_trials, tuple(notes))
+
+
+def _line_density(model: GratingModel, lines_nm: np.ndarray, n_pixels: int) -> float:
+    """Listed lines per pixel on the detector under ``model``."""
+    pos = model.pixel(lines_nm)
+    on_chip = np.count_nonzero((pos >= 0) & (pos <= n_pixels - 1))
+    return max(on_chip, 1) / float(n_pixels)

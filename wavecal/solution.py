@@ -1,0 +1,294 @@
+"""The wavelength solution: evaluate, invert, report, and its versioned JSON file.
+
+A :class:`Solution` is what a calibration returns and what :func:`load_solution` reads back. It
+evaluates the fitted physical model (``wavelength``/``pixel``), carries every detected peak with
+its identification (``lines``), the fitted parameters with uncertainties and correlations, and
+the verdict (``status`` and ``reasons``). The JSON layout is documented in the README
+("Solution file").
+"""
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ._atomic import atomic_write_text
+from .errors import SolutionFileError
+from .optics import GratingModel
+
+__all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "STATUSES", "SPEED_OF_LIGHT_KMS"]
+
+#: Version of the JSON layout written by :meth:`Solution.write`.
+SCHEMA_VERSION = 1
+#: Possible verdicts, from best to worst.
+STATUSES = ("ok", "suspect", "failed")
+#: Speed of light in km/s (exact, SI definition).
+SPEED_OF_LIGHT_KMS = 299792.458
+
+#: Columns of :attr:`Solution.lines`, in order.
+LINE_COLUMNS = (
+    "x", "x_err", "fwhm", "flux", "snr", "flags",
+    "identification", "element", "line_wavelength", "line_intensity", "line_verified",
+    "wavelength_fit", "residual_px", "residual_nm", "residual_kms",
+)
+
+
+@dataclass(frozen=True)
+class Solution:
+    """A pixel-to-wavelength solution for one arc frame.
+
+    Attributes
+    ----------
+    status : str
+        ``"ok"``, ``"suspect"`` or ``"failed"``.
+    reasons : tuple of str
+        Plain-language reasons behind the status (empty for a clean ``ok``).
+    medium : str
+        ``"air"`` or ``"vacuum"``: the medium of every wavelength here (nm).
+    model : GratingModel or None
+        The fitted physical model; None for a failed solution.
+    lines : pandas.DataFrame
+        Every detected peak, with its identification (``identification`` is one of ``used``,
+        ``rejected``, ``blend``, ``ghost``, ``unidentified``) and residuals.
+    parameters : tuple of dict
+        Fitted parameters: name, value, error, nominal, prior (half-width), shift_sigma.
+    correlation : dict
+        ``{"names": [...], "matrix": [[...]]}`` of the varied parameters.
+    covariance : ndarray or None
+        Covariance of the varied parameters, same order as ``correlation["names"]``.
+    statistics : dict
+        rms_px, rms_nm, rms_kms, redchi, n_used, n_rejected, n_peaks, distortion_degree,
+        log10_chance, ...
+    covered_range_px : tuple of float
+        Lowest and highest pixel of the lines used; outside it the solution is extrapolated.
+    frame : str or None
+        The frame the solution came from.
+    profile : str
+        Name of the instrument profile.
+    lamps : tuple of str
+    dispersion_axis : int
+        numpy axis of the raw frame along which ``x`` runs.
+    software_version : str
+    """
+
+    status: str
+    reasons: tuple[str, ...]
+    medium: str
+    model: GratingModel | None
+    lines: pd.DataFrame
+    parameters: tuple[dict, ...] = ()
+    correlation: dict = field(default_factory=dict)
+    covariance: np.ndarray | None = None
+    statistics: dict = field(default_factory=dict)
+    covered_range_px: tuple[float, float] = (math.nan, math.nan)
+    frame: str | None = None
+    profile: str = ""
+    lamps: tuple[str, ...] = ()
+    dispersion_axis: int = 1
+    software_version: str = ""
+
+    # -- evaluation ------------------------------------------------------------------------
+    def _require_model(self) -> GratingModel:
+        if self.model is None:
+            reasons = "; ".join(self.reasons) or "no solution"
+            msg = f"this solution failed ({reasons}); it has no wavelength scale"
+            raise ValueError(msg)
+        return self.model
+
+    def wavelength(self, x, y=None):
+        """Wavelength (nm, in :attr:`medium`) at 0-based pixel ``x`` along the dispersion axis.
+
+        Parameters
+        ----------
+        x : float or array_like
+            0-based pixel along the dispersion axis of the raw frame.
+        y : float or array_like, optional
+            Position along the slit; the single-row solution does not depend on it.
+        """
+        model = self._require_model()
+        lam = model.wavelength(x)
+        if y is not None:
+            lam = lam + np.zeros(np.broadcast(np.asarray(x), np.asarray(y)).shape)
+        return lam
+
+    def pixel(self, wavelength_nm):
+        """0-based pixel along the dispersion axis where ``wavelength_nm`` lands (NaN if none)."""
+        return self._require_model().pixel(wavelength_nm)
+
+    def extrapolated(self, x) -> np.ndarray:
+        """True where ``x`` lies outside the range covered by identified lines."""
+        lo, hi = self.covered_range_px
+        x = np.asarray(x, dtype=float)
+        return (x < lo) | (x > hi)
+
+    def wavelength_uncertainty(self, x) -> np.ndarray:
+        """1-sigma uncertainty (nm) of :meth:`wavelength` from the parameter covariance."""
+        model = self._require_model()
+        names = list(self.correlation.get("names", ()))
+        if self.covariance is None or not names:
+            return np.full(np.shape(x), np.nan)
+        x = np.asarray(x, dtype=float)
+        jac = []
+        for name, err in zip(names, np.sqrt(np.diag(self.covariance))):
+            step = 1e-3 * (err if np.isfinite(err) and err > 0 else 1e-6)
+            jac.append((_perturbed(model, name, step).wavelength(x)
+                        - _perturbed(model, name, -step).wavelength(x)) / (2 * step))
+        jac = np.array(jac)
+        var = np.einsum("i...,ij,j...->...", jac, self.covariance, jac)
+        return np.sqrt(np.clip(var, 0, None))
+
+    # -- reporting -------------------------------------------------------------------------
+    @property
+    def ok(self) -> bool:
+        """True only for an ``ok`` verdict."""
+        return self.status == "ok"
+
+    @property
+    def rms_px(self) -> float:
+        """RMS of the residuals of the lines used (pixels)."""
+        return float(self.statistics.get("rms_px", math.nan))
+
+    def summary(self) -> dict[str, Any]:
+        """A JSON-safe dictionary of the headline facts."""
+        stats = {k: _jsonable(v) for k, v in self.statistics.items()}
+        out = {"status": self.status, "reasons": list(self.reasons), "medium": self.medium,
+               "frame": self.frame, "profile": self.profile, "lamps": list(self.lamps),
+               "covered_range_px": [_jsonable(v) for v in self.covered_range_px], **stats}
+        if self.model is not None:
+            grid = np.array([0.0, 0.5 * (self.model.n_pixels - 1), self.model.n_pixels - 1.0])
+            lam = self.model.wavelength(grid)
+            out["wavelength_range_nm"] = [float(lam.min()), float(lam.max())]
+            out["central_dispersion_nm_per_px"] = float(abs(self.model.dispersion(grid[1])))
+        return out
+
+    def to_dict(self) -> dict[str, Any]:
+        """The full content of the solution file as a JSON-safe dictionary."""
+        lines = self.lines.reindex(columns=list(LINE_COLUMNS))
+        return {
+            "schema": "wavecal-solution",
+            "schema_version": SCHEMA_VERSION,
+            "software_version": self.software_version,
+            "status": self.status,
+            "reasons": list(self.reasons),
+            "medium": self.medium,
+            "wavelength_unit": "nm",
+            "pixel_convention": "0-based pixel along the dispersion axis of the raw frame",
+            "dispersion_axis": self.dispersion_axis,
+            "frame": self.frame,
+            "profile": self.profile,
+            "lamps": list(self.lamps),
+            "covered_range_px": [_jsonable(v) for v in self.covered_range_px],
+            "model": None if self.model is None else _model_to_dict(self.model),
+            "parameters": [{k: _jsonable(v) for k, v in p.items()} for p in self.parameters],
+            "correlation": {"names": list(self.correlation.get("names", ())),
+                            "matrix": _jsonable(self.correlation.get("matrix", []))},
+            "covariance": None if self.covariance is None else _jsonable(self.covariance),
+            "statistics": {k: _jsonable(v) for k, v in self.statistics.items()},
+            "lines": {col: [_jsonable(v) for v in lines[col].tolist()] for col in LINE_COLUMNS},
+        }
+
+    def write(self, path: str | Path) -> Path:
+        """Write the solution as JSON, atomically (a temporary file renamed into place)."""
+        path = Path(path)
+        atomic_write_text(path, json.dumps(self.to_dict(), indent=1, allow_nan=False) + "\n")
+        return path
+
+
+def _perturbed(model: GratingModel, name: str, step: float) -> GratingModel:
+    if name.startswith("distortion_"):
+        k = int(name.split("_")[1])
+        coeffs = list(model.distortion) + [0.0] * (k + 1 - len(model.distortion))
+        coeffs[k] += step
+        return model.with_parameters(distortion=tuple(coeffs))
+    return model.with_parameters(**{name: getattr(model, name) + step})
+
+
+def _model_to_dict(model: GratingModel) -> dict[str, Any]:
+    out = dataclasses.asdict(model)
+    out["distortion"] = list(model.distortion)
+    return {k: _jsonable(v) for k, v in out.items()}
+
+
+def _jsonable(value: Any) -> Any:
+    """Convert numpy scalars/arrays to plain Python; NaN and infinities to None."""
+    if isinstance(value, np.ndarray):
+        return [_jsonable(v) for v in value.tolist()]
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, (np.bool_, bool)):
+        return bool(value)
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        return value if math.isfinite(value) else None
+    return value
+
+
+def _float_or_nan(value: Any) -> float:
+    return math.nan if value is None else float(value)
+
+
+def load_solution(path: str | Path) -> Solution:
+    """Read a solution file written by :meth:`Solution.write`.
+
+    Raises
+    ------
+    SolutionFileError
+        If the file is missing, not JSON, of another schema or of an unknown version.
+    """
+    path = Path(path)
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        msg = f"{path}: cannot read solution file: {exc.strerror}"
+        raise SolutionFileError(msg) from None
+    except json.JSONDecodeError as exc:
+        msg = f"{path}: not a JSON solution file ({exc.msg} at line {exc.lineno})"
+        raise SolutionFileError(msg) from None
+    if not isinstance(data, dict) or data.get("schema") != "wavecal-solution":
+        msg = f"{path}: not a wavecal solution file (no 'schema': 'wavecal-solution')"
+        raise SolutionFileError(msg)
+    version = data.get("schema_version")
+    if version != SCHEMA_VERSION:
+        msg = f"{path}: solution schema version {version!r} is not supported (this is {SCHEMA_VERSION})"
+        raise SolutionFileError(msg)
+    try:
+        model = None
+        if data["model"] is not None:
+            fields = dict(data["model"])
+            fields["distortion"] = tuple(fields.get("distortion", ()))
+            model = GratingModel(**fields)
+        lines = pd.DataFrame({col: data["lines"][col] for col in LINE_COLUMNS})
+        for col in ("x", "x_err", "fwhm", "flux", "snr", "line_wavelength", "line_intensity",
+                    "wavelength_fit", "residual_px", "residual_nm", "residual_kms"):
+            lines[col] = lines[col].map(_float_or_nan).astype(float)
+        cov = data.get("covariance")
+        corr = data.get("correlation") or {}
+        return Solution(
+            status=data["status"],
+            reasons=tuple(data["reasons"]),
+            medium=data["medium"],
+            model=model,
+            lines=lines,
+            parameters=tuple(data.get("parameters", ())),
+            correlation={"names": tuple(corr.get("names", ())),
+                         "matrix": np.array(corr.get("matrix", []), dtype=float)},
+            covariance=None if cov is None else np.array(cov, dtype=float),
+            statistics={k: (math.nan if v is None else v) for k, v in data["statistics"].items()},
+            covered_range_px=tuple(_float_or_nan(v) for v in data["covered_range_px"]),
+            frame=data.get("frame"),
+            profile=data.get("profile", ""),
+            lamps=tuple(data.get("lamps", ())),
+            dispersion_axis=int(data.get("dispersion_axis", 1)),
+            software_version=data.get("software_version", ""),
+        )
+    except (KeyError, TypeError, ValueError) as exc:
+        msg = f"{path}: solution file is inconsistent: {exc}"
+        raise SolutionFileError(msg) from None
