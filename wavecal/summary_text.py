@@ -1,0 +1,58 @@
+"""The one-screen text summary of a solution, as printed by the command line."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .solution import Solution
+
+__all__ = ["format_summary"]
+
+_PARAMETER_LABELS = {
+    "grating_angle_deg": ("grating angle", "deg"),
+    "focal_length_mm": ("camera focal length", "mm"),
+    "axis_pixel": ("camera-axis pixel", "px"),
+    "tilt_deg": ("detector tilt", "deg"),
+    "grooves_per_mm": ("groove density", "/mm"),
+}
+
+
+def _fmt(value: float, digits: int = 4) -> str:
+    return "n/a" if value is None or (isinstance(value, float) and math.isnan(value)) else f"{value:.{digits}g}"
+
+
+def format_summary(solution: Solution) -> str:
+    """Plain-text summary: verdict and reasons, range, fit quality, parameters, line counts."""
+    out = []
+    name = solution.frame or "frame"
+    out.append(f"{name}")
+    out.append(f"  verdict   : {solution.status.upper()}")
+    for reason in solution.reasons:
+        out.append(f"              - {reason}")
+    stats = solution.statistics
+    ident = solution.lines["identification"].value_counts() if len(solution.lines) else {}
+    out.append(f"  lamps     : {'+'.join(solution.lamps)}   profile: {solution.profile}")
+    out.append(f"  peaks     : {stats.get('n_peaks', len(solution.lines))} found, "
+               f"{int(ident.get('used', 0))} used, {int(ident.get('rejected', 0))} rejected, "
+               f"{int(ident.get('blend', 0))} blends, {int(ident.get('ghost', 0))} 2nd-order ghosts, "
+               f"{int(ident.get('unidentified', 0))} unidentified")
+    if solution.model is None:
+        return "\n".join(out)
+    n = solution.model.n_pixels
+    lam = solution.wavelength(np.array([0.0, n - 1.0]))
+    disp = abs(float(solution.model.dispersion(0.5 * (n - 1))))
+    lo, hi = solution.covered_range_px
+    out.append(f"  range     : {lam.min():.3f} – {lam.max():.3f} nm ({solution.medium}), "
+               f"{disp:.5f} nm/px at centre")
+    out.append(f"  lines span: pixels {lo:.0f} – {hi:.0f} of 0 – {n - 1} (outside: extrapolated)")
+    out.append(f"  residuals : RMS {_fmt(stats.get('rms_px'))} px = {_fmt(stats.get('rms_nm'))} nm = "
+               f"{_fmt(stats.get('rms_kms'))} km/s;  reduced chi2 {_fmt(stats.get('redchi'), 3)};  "
+               f"distortion degree {stats.get('distortion_degree', 0)}")
+    out.append("  parameters (value ± error, shift from nominal in prior widths):")
+    for p in solution.parameters:
+        label, unit = _PARAMETER_LABELS.get(p["name"], (p["name"].replace("_", " "), ""))
+        shift = p.get("shift_sigma")
+        shift_txt = "" if shift is None or (isinstance(shift, float) and math.isnan(shift)) else f"  ({shift:+.2f})"
+        out.append(f"    {label:<22s} {p['value']:.6g} ± {_fmt(p['error'], 2)} {unit}{shift_txt}")
+    return "\n".join(out)
