@@ -8,6 +8,7 @@ README ("Instrument profiles").
 from __future__ import annotations
 
 import math
+import re
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -327,25 +328,38 @@ class InstrumentProfile:
 
 
 _ELEMENTS = ("Hg", "Ne", "Ar", "Kr", "Xe", "He", "Cd", "Zn", "Na")
+_ELEMENT_NAMES = {"mercury": "Hg", "neon": "Ne", "argon": "Ar", "krypton": "Kr", "xenon": "Xe",
+                  "helium": "He", "cadmium": "Cd", "zinc": "Zn", "sodium": "Na"}
+
+
+def _split_symbols(token: str) -> list[str] | None:
+    """Split a word made only of element symbols ("HgAr"); None if it is anything else."""
+    if not token:
+        return []
+    for element in _ELEMENTS:
+        if token[:2].lower() == element.lower():
+            rest = _split_symbols(token[2:])
+            if rest is not None:
+                return [element, *rest]
+    return None
 
 
 def parse_lamps(text: str) -> tuple[str, ...]:
     """Element symbols named in a free-text lamp description, in order of appearance.
 
+    Words are element symbols, run together or not ("HgAr", "Hg+Ar", "ne, xe"), or element
+    names ("neon"); any other word is ignored.
+
     >>> parse_lamps("HgAr + Ne")
     ('Hg', 'Ar', 'Ne')
+    >>> parse_lamps("none")
+    ()
     """
-    found: list[tuple[int, str]] = []
-    lowered = text.lower()
-    for element in _ELEMENTS:
-        start = 0
-        while (i := lowered.find(element.lower(), start)) >= 0:
-            found.append((i, element))
-            start = i + 1
-    ordered = []
-    for _, element in sorted(found):
-        if element not in ordered:
-            ordered.append(element)
+    ordered: list[str] = []
+    for token in re.findall(r"[A-Za-z]+", text):
+        symbols = [_ELEMENT_NAMES[token.lower()]] if token.lower() in _ELEMENT_NAMES \
+            else _split_symbols(token) or []
+        ordered.extend(e for e in symbols if e not in ordered)
     return tuple(ordered)
 
 
