@@ -2,8 +2,9 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from importlib import resources
 from pathlib import Path
+
+from ._resources import data_folder
 
 __all__ = ["DemoCase", "demo_cases", "DEMO_MANIFEST"]
 
@@ -29,5 +30,5 @@ class DemoCase:
 
 def demo_cases() -> list[DemoCase]:
     """The demo frames shipped with the package (works from an installed package)."""
-    folder = resources.files("wavecal.demo_frames")
+    folder = data_folder("demo_frames")
     return [DemoCase(Path(str(folder / name)), profile, title) for name, profile, title in DEMO_MANIFEST]

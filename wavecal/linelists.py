@@ -15,7 +15,6 @@ import functools
 from collections.abc import Iterable
 from dataclasses import dataclass
 from importlib import resources
-from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -23,6 +22,7 @@ import pandas as pd
 from astropy.table import Table
 
 from . import airvac
+from ._resources import data_folder
 
 if TYPE_CHECKING:
     from importlib.resources.abc import Traversable
@@ -32,7 +32,6 @@ __all__ = ["MEDIA", "LineList", "available_elements", "load_line_list"]
 #: Media a wavelength can refer to.
 MEDIA = ("air", "vacuum")
 
-_PACKAGE = "wavecal.line_lists"
 _COLUMNS = ("wavelength", "intensity", "blend", "weak", "verified")
 _FLAGS = ("blend", "weak", "verified")
 
@@ -146,12 +145,8 @@ class LineList:
         return frame
 
 
-@functools.lru_cache(maxsize=1)
 def _folder() -> Traversable:
-    try:
-        return resources.files(_PACKAGE)
-    except ModuleNotFoundError:  # an uninstalled source tree: the folder beside the package
-        return Path(__file__).resolve().parent.parent / "line_lists"
+    return data_folder("line_lists")
 
 
 @functools.lru_cache(maxsize=1)

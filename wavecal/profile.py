@@ -522,7 +522,7 @@ def load_profile(path: str | Path) -> InstrumentProfile:
 
 def example_profile_paths() -> dict[str, Path]:
     """The example profiles shipped with wavecal, by name."""
-    from importlib import resources
+    from ._resources import data_folder
 
-    folder = resources.files("wavecal.profiles")
+    folder = data_folder("profiles")
     return {Path(str(p)).stem: Path(str(p)) for p in folder.iterdir() if str(p).endswith(".toml")}
