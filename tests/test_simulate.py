@@ -1,0 +1,348 @@
+"""Tests of :mod:`wavecal.simulate`: synthetic arc frames with a known truth.
+
+Outside checks used here:
+
+* the pixel-integrated line profile against direct numerical integration (scipy.integrate) of
+  a top-hat convolved with a Gaussian, and its Gaussian limit against the FWHM = 2 sqrt(2 ln 2)
+  sigma relation (standard normal distribution; common practice);
+* the noise against the photon-transfer relation: for a linear detector the variance in ADU^2
+  of a frame difference is 2 (S/g + RN^2/g^2) for a signal of S ADU above bias (Janesick,
+  "Photon Transfer", SPIE Press 2007; from memory);
+* the lines against the shipped line list read through :mod:`wavecal.linelists`.
+"""
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+from astropy.io import fits
+from scipy import integrate
+from scipy.special import ndtr
+
+from wavecal.linelists import load_line_list
+from wavecal.profile import load_profile
+from wavecal.simulate import SimulatedArc, _blur_for_fwhm, simulate_arc, slit_line_profile
+
+QUIET = {"cosmic_rays": 0, "hot_pixels": 0, "scattered_light": 0.0}
+
+
+def _flipped(name: str):
+    """An example profile with the dispersion direction reversed."""
+    prof = load_profile(name)
+    det = dataclasses.replace(prof.detector,
+                              wavelength_increases=-prof.detector.wavelength_increases)
+    return dataclasses.replace(prof, detector=det)
+
+
+def _collapse(arc: SimulatedArc) -> np.ndarray:
+    """Sum of the half-maximum slit rows, as ADU along the dispersion axis."""
+    data = arc.data.astype(float)
+    if arc.profile.detector.dispersion_axis == 0:
+        data = data.T
+    return data[slice(*arc.slit_rows)].sum(axis=0)
+
+
+def _centroid_errors(arc: SimulatedArc, min_snr: float = 300.0) -> np.ndarray:
+    """Centroid minus x_true for bright lines with no other line within 6 FWHM."""
+    spec = _collapse(arc)
+    lines = arc.lines
+    x = lines["x_true"].to_numpy()
+    errors = []
+    for i, row in lines.iterrows():
+        half = int(np.ceil(2.5 * row.fwhm_px))
+        c = int(round(row.x_true))
+        if row.snr < min_snr or c - half - 10 < 0 or c + half + 10 > len(spec):
+            continue
+        if np.min(np.abs(np.delete(x, i) - row.x_true), initial=np.inf) < 6 * row.fwhm_px:
+            continue
+        if not (arc.lines["x_true"].between(0, arc.truth.n_pixels - 1)[i]):
+            continue
+        background = np.median(np.r_[spec[c - half - 8:c - half], spec[c + half + 1:c + half + 9]])
+        window = spec[c - half:c + half + 1] - background
+        pixels = np.arange(c - half, c + half + 1)
+        errors.append(np.sum(window * pixels) / np.sum(window) - row.x_true)
+    return np.array(errors)
+
+
+# -- the line profile -----------------------------------------------------------------------
+@pytest.mark.parametrize(("slit", "sigma"), [(0.0, 0.8), (1.5, 0.6), (2.4, 0.05)])
+def test_profile_matches_numerical_integration(slit, sigma):
+    # Direct double integral over the pixel and the top-hat of a normal density (scipy).
+    def direct(x, centre):
+        if slit == 0:
+            return integrate.quad(lambda u: np.exp(-0.5 * ((u - centre) / sigma) ** 2)
+                                  / (sigma * np.sqrt(2 * np.pi)), x - 0.5, x + 0.5)[0]
+        inner = lambda u: (ndtr((u - centre + slit / 2) / sigma)  # noqa: E731
+                           - ndtr((u - centre - slit / 2) / sigma)) / slit
+        return integrate.quad(inner, x - 0.5, x + 0.5, epsabs=1e-12)[0]
+
+    centre = 10.3
+    x = np.arange(4, 17)
+    got = slit_line_profile(x, centre, slit_px=slit, blur_sigma_px=sigma)
+    want = np.array([direct(xi, centre) for xi in x])
+    np.testing.assert_allclose(got, want, atol=1e-9)
+    assert got.sum() == pytest.approx(1.0, abs=1e-9)
+    assert np.all(got >= 0)
+
+
+def test_blur_for_fwhm_reaches_half_maximum_at_half_width():
+    # Gaussian limit: FWHM = 2 sqrt(2 ln 2) sigma (normal distribution; common practice).
+    assert _blur_for_fwhm(3.0, 0.0) == pytest.approx(3.0 / (2 * np.sqrt(2 * np.log(2))), rel=1e-8)
+    fwhm, slit = 3.0, 1.8
+    sigma = _blur_for_fwhm(fwhm, slit)
+    profile = lambda u: ndtr((u + slit / 2) / sigma) - ndtr((u - slit / 2) / sigma)  # noqa: E731
+    assert profile(fwhm / 2) == pytest.approx(0.5 * profile(0.0), rel=1e-8)
+
+
+def test_profile_rejects_bad_widths():
+    with pytest.raises(ValueError, match="blur_sigma_px must be positive"):
+        slit_line_profile(0.0, 0.0, slit_px=1.0, blur_sigma_px=0.0)
+
+
+# -- truth self-consistency -----------------------------------------------------------------
+CASES = {
+    "reflection, axis 1, +1": (lambda: load_profile("tho_longslit"), {}),
+    "reflection, axis 1, -1": (lambda: _flipped("tho_longslit"), {}),
+    "reflection, binned 2x2": (lambda: load_profile("tho_longslit"), {"binning": 2}),
+    "transmission, axis 0, -1": (lambda: load_profile("tho_transmission"), {}),
+    "transmission, axis 0, +1": (lambda: _flipped("tho_transmission"), {}),
+    "grism": (lambda: load_profile("tho_grism"), {}),
+    "approximate": (lambda: load_profile("tho_approximate"), {}),
+}
+
+
+@pytest.mark.parametrize("case", list(CASES))
+def test_lines_land_where_the_truth_says(case):
+    make, options = CASES[case]
+    prof = make()
+    arc = simulate_arc(prof, seed=11, peak_snr=3000.0, **QUIET, **options)
+    errors = _centroid_errors(arc)
+    assert len(errors) >= 3, "too few bright isolated lines to check"
+    assert np.max(np.abs(errors)) < 0.1
+    # The truth model maps each first-order line's x_true back to its wavelength.
+    first = arc.lines[arc.lines["order"] == arc.truth.order]
+    np.testing.assert_allclose(arc.true_wavelength(first["x_true"].to_numpy()),
+                               first["wavelength_nm"].to_numpy(), atol=1e-6)
+    # Wavelength runs along the profile's direction.
+    step = np.diff(arc.true_wavelength(np.array([10.0, arc.truth.n_pixels - 10.0])))[0]
+    assert np.sign(step) == prof.detector.wavelength_increases
+
+
+def test_frame_layout_follows_the_profile():
+    prof = load_profile("tho_transmission")
+    arc = simulate_arc(prof, seed=2, **QUIET)
+    assert arc.data.shape == prof.detector.shape
+    assert arc.data.dtype == np.uint16
+    binned = simulate_arc(load_profile("tho_longslit"), seed=2, binning=2, **QUIET)
+    assert binned.data.shape == (256, 2064)
+    assert binned.truth.pixel_mm == pytest.approx(0.030)
+    assert binned.profile.binning_from_header(binned.header) == (2, 2)
+    with pytest.raises(ValueError, match="maps no header keyword for binning"):
+        simulate_arc(prof, seed=2, binning=2)
+
+
+def test_truth_differs_from_nominal_within_the_priors():
+    prof = load_profile("tho_longslit")
+    pr = prof.priors
+    for seed in range(8):
+        arc = simulate_arc(prof, seed=seed, lamps="HgAr", central_wavelength_nm=600.0,
+                           cosmic_rays=0, hot_pixels=0)
+        t, n = arc.truth, arc.nominal
+        assert abs(t.grating_angle_deg - n.grating_angle_deg) <= pr.grating_angle_deg
+        assert abs(t.focal_length_mm / n.focal_length_mm - 1) <= pr.focal_length_fraction
+        assert abs(t.axis_pixel - n.axis_pixel) <= pr.axis_pixel_px
+        assert abs(t.tilt_deg - n.tilt_deg) <= pr.tilt_deg
+        assert t != n
+        # What the header says leads back to the nominal model.
+        assert prof.grating_angle_from_header(arc.header) == pytest.approx(n.grating_angle_deg)
+        assert prof.lamps_from_header(arc.header) == ("Hg", "Ar")
+        assert prof.header_value(arc.header, "image_type") == "arc"
+        assert abs(n.central_wavelength() - 600.0) < 1e-3
+
+
+def test_explicit_errors_are_applied():
+    prof = load_profile("tho_longslit")
+    arc = simulate_arc(prof, seed=1, grating_angle_deg=10.0, angle_error_deg=-2.5,
+                       focal_error_fraction=0.02, axis_error_px=7.0, tilt_error_deg=0.5,
+                       distortion_px=(0.0, 0.0, 0.1), **QUIET)
+    assert arc.header["GRTANGLE"] == 10.0
+    assert arc.truth.grating_angle_deg == pytest.approx(7.5)
+    assert arc.truth.focal_length_mm == pytest.approx(306.0)
+    assert arc.truth.axis_pixel == pytest.approx(arc.nominal.axis_pixel + 7.0)
+    assert arc.truth.tilt_deg == pytest.approx(0.5)
+    assert arc.truth.distortion == (0.0, 0.0, 0.1)
+
+
+def test_approximate_profile_gets_a_hidden_model_within_the_stated_uncertainty():
+    prof = load_profile("tho_approximate")
+    approx = prof.approximate
+    for seed in range(6):
+        truth = simulate_arc(prof, seed=seed, **QUIET).truth
+        assert truth.mount == "reflection"
+        assert 300 <= truth.grooves_per_mm <= 1200
+        centre = truth.central_wavelength()
+        dispersion = float(truth.dispersion(0.5 * (truth.n_pixels - 1)))
+        # The axis may sit 2 % of the detector off centre: allow that much extra.
+        slack = 0.02 * truth.n_pixels * dispersion
+        assert abs(centre - approx.central_wavelength_nm) <= (
+            approx.central_wavelength_uncertainty * approx.central_wavelength_nm + slack)
+        assert abs(dispersion / approx.dispersion_nm_per_px - 1) <= (
+            approx.dispersion_uncertainty + 0.02)
+
+
+# -- the lamp -------------------------------------------------------------------------------
+def test_lines_are_the_listed_ones_when_nothing_is_dropped_or_added():
+    prof = load_profile("tho_grism")
+    arc = simulate_arc(prof, seed=4, lamps="NeAr", missing_fraction=0.0, unlisted_fraction=0.0,
+                       ghosts=False, **QUIET)
+    lo, hi = np.sort(arc.true_wavelength(np.array([-12.0, arc.truth.n_pixels - 1 + 12.0])))
+    listed = load_line_list(("Ne", "Ar")).in_range(lo, hi)
+    assert np.array_equal(np.sort(arc.lines["wavelength_nm"].to_numpy()),
+                          np.sort(listed.wavelength_nm))
+    assert arc.lines["listed"].all()
+
+
+def test_missing_unlisted_and_intensity_scatter():
+    prof = load_profile("tho_grism")
+    arc = simulate_arc(prof, seed=9, lamps="HgNeAr", missing_fraction=0.3, unlisted_fraction=0.2,
+                       ghosts=False, **QUIET)
+    lines = arc.lines
+    lo, hi = np.sort(arc.true_wavelength(np.array([-12.0, arc.truth.n_pixels - 1 + 12.0])))
+    n_list = len(load_line_list(("Hg", "Ne", "Ar")).in_range(lo, hi))
+    n_listed = int(lines["listed"].sum())
+    assert 0.45 * n_list < n_listed < 0.9 * n_list  # about 70 % of the list survives
+    assert (~lines["listed"]).sum() == round(0.2 * n_listed)
+    # Strengths are not proportional to the listed intensities.
+    ne = load_line_list(("Ne",))
+    sel = lines[lines["listed"] & (lines["element"] == "Ne")]
+    listed_intensity = np.interp(sel["wavelength_nm"], ne.wavelength_nm, ne.intensity)
+    log_ratio = np.log(sel["flux_e"].to_numpy() / listed_intensity)
+    assert np.std(log_ratio) > 0.3
+
+
+def test_ghosts_are_next_order_images_of_ultraviolet_lines():
+    prof = load_profile("tho_longslit")
+    arc = simulate_arc(prof, seed=3, lamps="Hg", central_wavelength_nm=540.0,
+                       missing_fraction=0.0, **QUIET)
+    ghosts = arc.lines[arc.lines["ghost"]]
+    # Hg 253.652 nm (reference-values.md §1.1) in order 2 lands where 507.304 nm falls in order 1.
+    g = ghosts[np.isclose(ghosts["wavelength_nm"], 253.652)]
+    assert len(g) == 1 and int(g["order"].iloc[0]) == 2
+    assert g["x_true"].iloc[0] == pytest.approx(float(arc.truth.pixel(2 * 253.652)), abs=1e-6)
+    first = arc.lines[~arc.lines["ghost"] & arc.lines["listed"]]
+    assert (ghosts["wavelength_nm"] < first["wavelength_nm"].min()).all()
+    none = simulate_arc(prof, seed=3, lamps="Hg", central_wavelength_nm=540.0, ghosts=False,
+                        **QUIET)
+    assert not none.lines["ghost"].any()
+
+
+# -- detector effects -----------------------------------------------------------------------
+def test_read_noise_and_bias_in_unlit_rows():
+    prof = load_profile("tho_grism")
+    det = prof.detector
+    arc = simulate_arc(prof, seed=5, dtype="float32", **QUIET)
+    rows = np.r_[0:arc.slit_rows[0] - 10, arc.slit_rows[1] + 10:arc.data.shape[0]]
+    dark = arc.data[rows].astype(float)
+    assert dark.size > 10000
+    assert np.mean(dark) == pytest.approx(det.bias_adu, abs=0.05)
+    assert np.std(dark) == pytest.approx(det.read_noise_e / det.gain_e_per_adu, rel=0.03)
+
+
+def test_photon_transfer_gives_the_profile_gain():
+    prof = load_profile("tho_grism")
+    det = prof.detector
+    options = dict(seed=6, lamps="HgNeAr", dtype="float32", peak_snr=1500.0, scattered_light=0.05,
+                   cosmic_rays=0, hot_pixels=0)
+    a = simulate_arc(prof, noise_seed=100, **options)
+    b = simulate_arc(prof, noise_seed=200, **options)
+    assert np.array_equal(a.lines["flux_e"], b.lines["flux_e"])
+    signal = 0.5 * (a.data + b.data).astype(float) - det.bias_adu
+    half_diff_var = 0.5 * (a.data.astype(float) - b.data) ** 2
+    lit = signal > 50
+    # Variance of the frame difference / 2 = S/g + (RN/g)^2  (photon transfer; see docstring).
+    read_var = (det.read_noise_e / det.gain_e_per_adu) ** 2
+    slope, _ = np.polyfit(signal[lit], half_diff_var[lit] - read_var, 1)
+    assert slope == pytest.approx(1.0 / det.gain_e_per_adu, rel=0.05)
+
+
+def test_saturation_clips_the_brightest_lines():
+    prof = load_profile("tho_longslit")
+    arc = simulate_arc(prof, seed=8, saturate=2, **QUIET)
+    sat = arc.lines[arc.lines["saturated"]]
+    assert len(sat) >= 2
+    assert arc.data.max() == prof.detector.saturation_adu
+    data = arc.data[slice(*arc.slit_rows)]
+    for x in np.round(sat["x_true"].to_numpy()).astype(int):
+        assert data[:, x].max() == prof.detector.saturation_adu
+    clean = simulate_arc(prof, seed=8, **QUIET)
+    assert not clean.lines["saturated"].any()
+    assert clean.data.max() < prof.detector.saturation_adu
+
+
+def test_cosmic_rays_and_hot_pixels_add_outliers_outside_the_overscan():
+    prof = load_profile("tho_longslit")
+    det = prof.detector
+    sigma_adu = det.read_noise_e / det.gain_e_per_adu
+
+    def outliers(arc):
+        rows = np.r_[0:arc.slit_rows[0] - 10, arc.slit_rows[1] + 10:arc.data.shape[0]]
+        dark = arc.data[rows, :4096].astype(float)
+        level = np.median(dark)
+        over = arc.data[:, det.overscan[2]:det.overscan[3]].astype(float)
+        return (dark > level + 15 * sigma_adu).sum(), (over > level + 15 * sigma_adu).sum()
+
+    assert outliers(simulate_arc(prof, seed=12, **QUIET)) == (0, 0)
+    in_dark, in_overscan = outliers(simulate_arc(prof, seed=12, cosmic_rays=60, hot_pixels=60,
+                                                 scattered_light=0.0))
+    assert in_dark >= 10
+    assert in_overscan == 0
+
+
+# -- reproducibility, files, options --------------------------------------------------------
+def test_same_seed_same_frame_other_seed_other_frame():
+    prof = load_profile("tho_transmission")
+    a = simulate_arc(prof, seed=21)
+    b = simulate_arc(prof, seed=21)
+    c = simulate_arc(prof, seed=22)
+    assert np.array_equal(a.data, b.data)
+    assert a.lines.equals(b.lines)
+    assert a.truth == b.truth
+    assert not np.array_equal(a.data, c.data)
+    assert a.truth != c.truth
+
+
+def test_write_round_trip(tmp_path):
+    prof = load_profile("tho_longslit")
+    arc = simulate_arc(prof, seed=1, binning=2)
+    path = arc.write(tmp_path / "arc.fits")
+    with fits.open(path) as hdul:
+        assert np.array_equal(hdul[0].data, arc.data)
+        assert hdul[0].data.dtype == np.uint16
+        assert hdul[0].header["ARCLAMPS"] == arc.header["ARCLAMPS"]
+        assert hdul[0].header["DATE-OBS"] == arc.header["DATE-OBS"]
+    with pytest.raises(FileExistsError, match="arc.fits"):
+        arc.write(path)
+    arc.write(path, overwrite=True)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["arc.fits"]
+
+
+def test_image_goes_to_the_profiles_extension():
+    prof = load_profile("tho_grism")
+    prof = dataclasses.replace(prof, detector=dataclasses.replace(prof.detector, hdu="SCI"))
+    hdul = simulate_arc(prof, seed=1, **QUIET).to_hdulist()
+    assert hdul[0].data is None
+    assert hdul["SCI"].data.shape == prof.detector.shape
+
+
+@pytest.mark.parametrize(("option", "message"), [
+    ({"peak_snr": 0.0}, "peak_snr must be positive"),
+    ({"missing_fraction": 1.0}, r"missing_fraction must be in \[0, 1\)"),
+    ({"dtype": "int32"}, "dtype must be"),
+    ({"binning": 3}, "binning must be 1 or 2"),
+    ({"slit_fraction": 1.0}, "slit_fraction must be in"),
+    ({"central_wavelength_nm": 5000.0}, "no grating angle puts 5000.0 nm"),
+])
+def test_bad_options_are_refused(option, message):
+    with pytest.raises(ValueError, match=message):
+        simulate_arc(load_profile("tho_longslit"), seed=0, **option)
