@@ -1,0 +1,400 @@
+"""Raw FITS frames: reading, bias/overscan removal, trimming, masks and the noise model.
+
+A raw arc frame is read once, read-only, into a :class:`Frame` holding the illuminated pixels in
+electrons, their variance from the detector noise model and masks of unusable pixels. Nothing
+further down the pipeline re-opens the file.
+
+Pixel conventions
+-----------------
+The instrument profile gives its pixel regions (``trim``, ``overscan``) in *unbinned* detector
+pixels; for a binned frame they are divided by the frame's binning (read from the header through
+the profile), keeping only whole binned pixels. :attr:`Frame.origin` is the pixel of the file
+*as read* (binned, 0-based) that holds ``data[0, 0]``, so a data index plus the origin gives the
+raw-frame pixel.
+
+Noise model
+-----------
+Per pixel, in electrons²: ``variance = max(data, 0) + read_noise²`` (Poisson plus Gaussian read
+noise; the noise of the bias estimate is neglected).
+"""
+from __future__ import annotations
+
+import logging
+import math
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from astropy.io import fits
+from scipy.ndimage import median_filter
+
+from .errors import FrameError
+from .profile import InstrumentProfile
+
+__all__ = ["Frame", "read_frame", "frame_from_array"]
+
+_log = logging.getLogger(__name__)
+
+#: Lines of the overscan strip over which the per-line overscan levels are median-smoothed.
+_OVERSCAN_SMOOTH_LINES = 9
+
+#: Header keywords describing the file structure, not copied from the primary header.
+_STRUCTURAL = {"SIMPLE", "BITPIX", "NAXIS", "EXTEND", "PCOUNT", "GCOUNT", "XTENSION", "BZERO",
+               "BSCALE", "BLANK", "COMMENT", "HISTORY", "", "CHECKSUM", "DATASUM", "EXTNAME",
+               "EXTVER", "GROUPS"}
+
+
+@dataclass(frozen=True, eq=False)
+class Frame:
+    """A raw frame reduced to electrons, with variance and masks.
+
+    The arrays are read-only.
+
+    Attributes
+    ----------
+    path : Path or None
+        The file the frame was read from (None for in-memory frames).
+    data : ndarray of float32, shape (M, N)
+        Bias-subtracted, trimmed pixel values in electrons. Non-finite raw values are set to 0
+        (and marked in ``bad``).
+    variance : ndarray of float32, shape (M, N)
+        ``max(data, 0) + read_noise**2`` in electrons².
+    bad : ndarray of bool, shape (M, N)
+        Unusable pixels: non-finite raw values and saturated pixels.
+    saturated : ndarray of bool, shape (M, N)
+        Pixels whose raw value reached the profile's ``saturation_adu``. Their ``data`` keeps the
+        (lower-bound) value read.
+    header : astropy.io.fits.Header
+        A copy of the image HDU's header; for an extension, primary-header keywords it lacks are
+        appended.
+    dispersion_axis : int
+        Axis of ``data`` along which the wavelength changes (0 or 1).
+    origin : tuple of int
+        ``(row0, col0)``: pixel of the file as read that holds ``data[0, 0]``.
+    binning : tuple of int
+        Binning ``(along axis 0, along axis 1)`` of ``data``.
+    """
+
+    path: Path | None
+    data: np.ndarray
+    variance: np.ndarray
+    bad: np.ndarray
+    saturated: np.ndarray
+    header: fits.Header
+    dispersion_axis: int
+    origin: tuple[int, int]
+    binning: tuple[int, int]
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        """Shape ``(rows, columns)`` of ``data``."""
+        return self.data.shape  # type: ignore[return-value]
+
+    @property
+    def n_dispersion(self) -> int:
+        """Number of pixels along the dispersion axis."""
+        return int(self.data.shape[self.dispersion_axis])
+
+    @property
+    def n_spatial(self) -> int:
+        """Number of pixels across the dispersion (along the slit)."""
+        return int(self.data.shape[1 - self.dispersion_axis])
+
+
+def read_frame(path: str | Path, profile: InstrumentProfile, *, hdu: int | str | None = None,
+               bias: np.ndarray | None = None) -> Frame:
+    """Read a raw frame from a FITS file.
+
+    The file is opened read-only and closed before returning; it is never modified.
+
+    Parameters
+    ----------
+    path : str or Path
+        The FITS file.
+    profile : InstrumentProfile
+        The instrument: detector geometry, gain, read noise, saturation, header mapping.
+    hdu : int or str, optional
+        HDU (index or EXTNAME) holding the image. Default: the profile's ``detector.hdu``, else
+        the first HDU with image data.
+    bias : ndarray, optional
+        Master bias in ADU, of the raw (as read) shape or of the trimmed shape. When given it is
+        subtracted instead of the overscan level or the profile's constant ``bias_adu``.
+
+    Returns
+    -------
+    Frame
+
+    Raises
+    ------
+    FrameError
+        Naming the file: missing, not FITS, truncated or corrupt, no image data, all pixels
+        non-finite, or a shape that does not hold the profile's trim/overscan regions.
+    HeaderError
+        When the binning keyword is missing and the profile declares no default.
+
+    Notes
+    -----
+    Integer data with ``BZERO``/``BSCALE`` are scaled by astropy on reading. One-dimensional
+    data are taken as an already extracted, bias-subtracted spectrum in ADU: it becomes a
+    one-row frame with the dispersion along axis 1; no bias is subtracted, saturation is not
+    flagged (a sum of rows may legitimately exceed the saturation level) and the profile's trim
+    along the dispersion axis is applied only when the length equals the detector's length.
+    """
+    path = Path(path)
+    if not path.is_file():
+        msg = f"{path}: file not found"
+        raise FrameError(msg)
+    which = hdu if hdu is not None else profile.detector.hdu
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        raw, header = _read_image(path, which, caught)
+    return _build_frame(raw, header, profile, path=path, bias=bias)
+
+
+def frame_from_array(data: np.ndarray, profile: InstrumentProfile, *,
+                     header: fits.Header | None = None, path: str | Path | None = None,
+                     bias: np.ndarray | None = None) -> Frame:
+    """Build a :class:`Frame` from a raw image held in memory.
+
+    Parameters
+    ----------
+    data : array_like, shape (M, N) or (N,)
+        Raw pixel values in ADU, as they would be read from the file (overscan included).
+    profile : InstrumentProfile
+        The instrument.
+    header : astropy.io.fits.Header, optional
+        Header to attach (copied); an empty one by default.
+    path : str or Path, optional
+        Name used in error messages and kept as :attr:`Frame.path`.
+    bias : ndarray, optional
+        Master bias in ADU (see :func:`read_frame`).
+
+    Returns
+    -------
+    Frame
+    """
+    header = fits.Header() if header is None else header.copy()
+    raw = np.asarray(data)
+    if raw.dtype.kind not in "uif":
+        msg = f"{path or '<array>'}: image data of type {raw.dtype} is not numeric"
+        raise FrameError(msg)
+    return _build_frame(raw, header, profile, path=None if path is None else Path(path), bias=bias)
+
+
+# ------------------------------------------------------------------------------------------------
+# Reading
+# ------------------------------------------------------------------------------------------------
+
+def _read_image(path: Path, which: int | str | None,
+                caught: list[warnings.WarningMessage]) -> tuple[np.ndarray, fits.Header]:
+    """Data (a copy, scaled to physical ADU) and merged header of the image HDU."""
+    try:
+        with path.open("rb") as fh, fits.open(fh, mode="readonly", memmap=False,
+                                              lazy_load_hdus=False) as hdul:
+            _raise_if_truncated(path, caught)
+            index = _image_hdu_index(path, hdul, which)
+            image = hdul[index]
+            try:
+                data = image.data
+            except (ValueError, OSError, TypeError) as exc:
+                msg = f"{path}: cannot read the image data of HDU {index} (truncated or corrupt file?): {exc}"
+                raise FrameError(msg) from None
+            _raise_if_truncated(path, caught)
+            data = np.array(data, copy=True)
+            header = image.header.copy()
+            if index != 0:
+                for card in hdul[0].header.cards:
+                    if card.keyword not in _STRUCTURAL and card.keyword not in header:
+                        header.append(card)
+    except FrameError:
+        raise
+    except OSError as exc:
+        if "SIMPLE" in str(exc) or path.stat().st_size == 0 or "Empty or corrupt" in str(exc):
+            msg = f"{path}: not a FITS file (or its header is truncated or corrupt): {exc}"
+        else:
+            msg = f"{path}: cannot read FITS file: {exc}"
+        raise FrameError(msg) from None
+    for w in caught:
+        _log.debug("%s: %s", path, w.message)
+    return data, header
+
+
+def _raise_if_truncated(path: Path, caught: list[warnings.WarningMessage]) -> None:
+    for w in caught:
+        if "truncated" in str(w.message).lower():
+            msg = f"{path}: the FITS file is truncated ({w.message})"
+            raise FrameError(msg)
+
+
+def _image_hdu_index(path: Path, hdul: fits.HDUList, which: int | str | None) -> int:
+    if which is not None:
+        try:
+            index = hdul.index_of(which)
+        except (KeyError, IndexError):
+            msg = f"{path}: has no HDU {which!r} (HDUs: {[h.name for h in hdul]})"
+            raise FrameError(msg) from None
+        if not _is_image(hdul[index]):
+            msg = f"{path}: HDU {which!r} holds no image data"
+            raise FrameError(msg)
+        return index
+    for index, candidate in enumerate(hdul):
+        if _is_image(candidate):
+            return index
+    msg = f"{path}: no HDU holds 1-D or 2-D image data"
+    raise FrameError(msg)
+
+
+def _is_image(hdu: Any) -> bool:
+    if not isinstance(hdu, (fits.PrimaryHDU, fits.ImageHDU, fits.CompImageHDU)):
+        return False
+    shape = tuple(int(n) for n in hdu.shape) if hdu.shape else ()
+    while len(shape) > 2 and shape[0] == 1:
+        shape = shape[1:]
+    return len(shape) in (1, 2) and all(n > 0 for n in shape)
+
+
+# ------------------------------------------------------------------------------------------------
+# Reduction to electrons
+# ------------------------------------------------------------------------------------------------
+
+def _build_frame(raw: np.ndarray, header: fits.Header, profile: InstrumentProfile, *,
+                 path: Path | None, bias: np.ndarray | None) -> Frame:
+    where = str(path) if path is not None else "<array>"
+    while raw.ndim > 2 and raw.shape[0] == 1:
+        raw = raw[0]
+    if raw.ndim not in (1, 2) or raw.size == 0:
+        msg = f"{where}: image data of shape {raw.shape} is neither 1-D nor 2-D"
+        raise FrameError(msg)
+    det = profile.detector
+    binning = profile.binning_from_header(header, path=path)
+    adu = raw.astype(np.float32, copy=False)
+    finite = np.isfinite(adu)
+    if not finite.any():
+        msg = f"{where}: all pixel values are NaN or infinite"
+        raise FrameError(msg)
+    if raw.ndim == 1:
+        adu, finite, saturated, origin, binning = _one_dimensional(adu, finite, profile, binning, bias,
+                                                                   where)
+        disp_axis = 1
+    else:
+        saturated = finite & (adu >= det.saturation_adu)
+        trim, overscan = _regions(adu.shape, det, binning, where)
+        if bias is not None:
+            level: np.ndarray | float = _bias_cutout(np.asarray(bias, dtype=np.float32), adu.shape, trim,
+                                                     where)
+        elif overscan is not None:
+            level = _overscan_level(adu, finite, overscan, trim, where)
+        else:
+            level = np.float32(det.bias_adu)
+        cut = (slice(trim[0], trim[1]), slice(trim[2], trim[3]))
+        adu = adu[cut] - level
+        finite, saturated = finite[cut], saturated[cut]
+        origin = (trim[0], trim[2])
+        disp_axis = det.dispersion_axis
+    if not finite.any():
+        msg = f"{where}: all pixel values in the trim region are NaN or infinite"
+        raise FrameError(msg)
+    electrons = np.where(finite, adu * np.float32(det.gain_e_per_adu), np.float32(0.0)).astype(np.float32)
+    variance = np.maximum(electrons, np.float32(0.0)) + np.float32(det.read_noise_e ** 2)
+    bad = ~finite | saturated
+    for array in (electrons, variance, bad, saturated):
+        array.setflags(write=False)
+    return Frame(path=path, data=electrons, variance=variance, bad=bad,
+                 saturated=saturated, header=header, dispersion_axis=disp_axis,
+                 origin=(int(origin[0]), int(origin[1])), binning=(int(binning[0]), int(binning[1])))
+
+
+def _one_dimensional(adu: np.ndarray, finite: np.ndarray, profile: InstrumentProfile,
+                     binning: tuple[int, int], bias: np.ndarray | None, where: str):
+    """An extracted spectrum as a one-row frame (see :func:`read_frame`, Notes)."""
+    det = profile.detector
+    b = int(binning[det.dispersion_axis])
+    start, stop = det.dispersion_range
+    full = det.shape[det.dispersion_axis] // b
+    lo, hi = (math.ceil(start / b), stop // b) if adu.size == full else (0, adu.size)
+    if bias is not None:
+        level = np.asarray(bias, dtype=np.float32).ravel()
+        if level.size == adu.size:
+            level = level[lo:hi]
+        elif level.size != hi - lo:
+            msg = f"{where}: bias of size {level.size} matches neither the spectrum ({adu.size}) nor its trim"
+            raise FrameError(msg)
+        adu = adu[lo:hi] - level
+    else:
+        adu = adu[lo:hi]
+    finite = finite[lo:hi][np.newaxis, :]
+    adu = adu[np.newaxis, :]
+    saturated = np.zeros(adu.shape, dtype=bool)
+    frame_binning = (int(binning[1 - det.dispersion_axis]), b)
+    return adu, finite, saturated, (0, lo), frame_binning
+
+
+def _scale_region(region: tuple[int, int, int, int], binning: tuple[int, int]) -> tuple[int, int, int, int]:
+    """Unbinned region -> whole binned pixels inside it."""
+    b0, b1 = binning
+    r0, r1, c0, c1 = region
+    return (math.ceil(r0 / b0), r1 // b0, math.ceil(c0 / b1), c1 // b1)
+
+
+def _regions(shape: tuple[int, ...], det: Any, binning: tuple[int, int], where: str):
+    """Trim and overscan regions in pixels as read, checked against the frame shape."""
+    rows, cols = shape
+    trim = (0, rows, 0, cols) if det.trim is None else _scale_region(det.trim, binning)
+    overscan = None if det.overscan is None else _scale_region(det.overscan, binning)
+    for name, region in (("trim", trim), ("overscan", overscan)):
+        if region is None:
+            continue
+        if region[1] > rows or region[3] > cols or region[1] <= region[0] or region[3] <= region[2]:
+            msg = (f"{where}: frame shape {rows}x{cols} (binning {binning[0]}x{binning[1]}) does not "
+                   f"contain the profile's {name} region rows {region[0]}:{region[1]}, columns "
+                   f"{region[2]}:{region[3]} (profile detector shape {det.shape[0]}x{det.shape[1]} "
+                   f"unbinned); wrong profile or binning?")
+            raise FrameError(msg)
+    return trim, overscan
+
+
+def _bias_cutout(bias: np.ndarray, shape: tuple[int, ...], trim: tuple[int, int, int, int],
+                 where: str) -> np.ndarray:
+    if bias.shape == tuple(shape):
+        return bias[trim[0]:trim[1], trim[2]:trim[3]]
+    if bias.shape == (trim[1] - trim[0], trim[3] - trim[2]):
+        return bias
+    msg = (f"{where}: bias frame of shape {bias.shape} matches neither the raw frame {tuple(shape)} nor "
+           f"its trimmed shape {(trim[1] - trim[0], trim[3] - trim[2])}")
+    raise FrameError(msg)
+
+
+def _overscan_level(adu: np.ndarray, finite: np.ndarray, overscan: tuple[int, int, int, int],
+                    trim: tuple[int, int, int, int], where: str) -> np.ndarray | np.float32:
+    """Robust overscan level: per line along the strip when it runs beside the data, else scalar.
+
+    A strip of columns covering the trimmed rows gives one level per row (median across the
+    strip, then a running median over a few rows); a strip of rows covering the trimmed columns
+    gives one level per column. Otherwise the median of the whole region is used. Non-finite
+    overscan pixels are replaced by the median of the finite ones.
+    """
+    r0, r1, c0, c1 = overscan
+    strip = adu[r0:r1, c0:c1]
+    ok = finite[r0:r1, c0:c1]
+    if not ok.any():
+        msg = f"{where}: the overscan region holds no finite values"
+        raise FrameError(msg)
+    overall = np.median(strip[ok])
+    if not ok.all():
+        strip = np.where(ok, strip, overall)
+    covers_rows = r0 <= trim[0] and r1 >= trim[1]
+    covers_cols = c0 <= trim[2] and c1 >= trim[3]
+    if covers_rows and (c1 - c0) >= 3 and not (covers_cols and (r1 - r0) < (c1 - c0)):
+        per_row = _smooth(np.median(strip, axis=1))
+        return per_row[trim[0] - r0:trim[1] - r0, np.newaxis].astype(np.float32)
+    if covers_cols and (r1 - r0) >= 3:
+        per_col = _smooth(np.median(strip, axis=0))
+        return per_col[np.newaxis, trim[2] - c0:trim[3] - c0].astype(np.float32)
+    return np.float32(overall)
+
+
+def _smooth(levels: np.ndarray) -> np.ndarray:
+    """Running median of the per-line overscan levels."""
+    return median_filter(levels, size=min(_OVERSCAN_SMOOTH_LINES, levels.size), mode="nearest")
