@@ -19,7 +19,8 @@ Conventions (those of the grating equation as usually written, e.g. Palmer & Loe
   the dispersion direction receives the ray at ``β = β_c + atan2(s cos τ, f − s sin τ)``. This is
   exactly the geometry of the FITS WCS ``-GRI``/``-GRA`` algorithm (Greisen et al. 2006, Paper III).
 * A small camera distortion is an extra pixel shift ``Σ_k c_k P_k(u)`` (Legendre polynomials,
-  ``u`` the pixel position scaled to [-1, 1] over the detector), added before the geometry.
+  ``u`` the pixel position scaled to [-1, 1] over the detector), added before the geometry; it is
+  held constant beyond |u| = 4, far from any light.
 
 All angles are in degrees at the public interface, wavelengths in nm, lengths in mm, pixels are
 0-based along the dispersion axis of the raw frame.
@@ -180,9 +181,11 @@ class GratingModel:
         return replace(self, **changes)
 
     def _distortion_shift(self, x):
+        """Distortion shift (pixels); held at its value 1.5 detector lengths out beyond that,
+        where no light falls, so that far-off wavelengths cannot overflow the polynomial."""
         if not self.distortion:
             return 0.0
-        return legendre.legval(self._scaled(x), self.distortion)
+        return legendre.legval(np.clip(self._scaled(x), -4.0, 4.0), self.distortion)
 
     def _scaled(self, x):
         half = 0.5 * (self.n_pixels - 1)
