@@ -75,7 +75,9 @@ def test_cosmic_rays_are_rejected_and_make_no_peak():
     clean = observe(rng, expected)
     hit = clean.copy()
     hit[40:45, 400] += 30000.0  # a track five pixels long along the slit
-    hit[80, 401:404] += 15000.0  # and one along the dispersion
+    hit[60:67, 200] += 8000.0  # one seven pixels long, on a line
+    hit[80, 401:404] += 15000.0  # one along the dispersion
+    hit[117:120, 550] += 20000.0  # one at the end of the slit
     hit[10, 600] += 50000.0  # a single hot pixel
     profile = camera((n_rows, n_cols))
     a = extract_spectrum(frame_from_array(clean, profile), rows=(0, n_rows))
@@ -111,6 +113,13 @@ def test_automatic_rows_and_cosmic_ray_in_dark_rows():
     assert spectrum.rows == (60, 150) and spectrum.n_rows == 90
     # a higher threshold selects the same lit block
     assert extract_spectrum(frame_from_array(data, camera((n_rows, n_cols))), row_fraction=0.6).rows == (60, 150)
+    # lit rows three rows from the frame's end: the dark end rows are not filled with light
+    expected = arc_image(rng, n_rows, n_cols, [150.0, 400.0], [500.0, 800.0], lit=(3, 100))
+    frame = frame_from_array(observe(rng, expected), camera((n_rows, n_cols)))
+    assert extract_spectrum(frame).rows == (3, 100)
+    whole = extract_spectrum(frame, rows=(0, 100))
+    plain = frame.data[:100].sum(axis=0, dtype=np.float64)
+    assert np.all(np.abs(whole.flux - plain) < 3.0 * np.sqrt(whole.variance))
 
 
 def test_dark_frame_uses_all_rows():

@@ -2,7 +2,8 @@
 
 The sum over the rows of the slit is made robust against cosmic rays and hot pixels by
 comparing every pixel with a robust local value from its neighbours *along the slit* at the
-same dispersion position (a median of medians over 15 rows, see :func:`_running_median`). A pixel deviating from that local value by more than
+same dispersion position (a median of medians over 15 rows, see :func:`_running_median`). A
+pixel deviating from that local value by more than
 ``clip`` standard deviations of the noise model, or marked bad (non-finite) in the frame, is
 replaced by the local value. A local rather than a whole-column median keeps lines that are
 tilted or curved across the slit intact: their flux changes slowly along the slit, and the
@@ -87,9 +88,9 @@ def extract_spectrum(frame: Frame, *, rows: tuple[int, int] | None = None, clip:
 
     Notes
     -----
-    Automatic row choice: each row's total signal (sum along the dispersion axis) is smoothed
-    with a running median over five rows, so that a cosmic ray cannot make a dark row look
-    bright; the rows used are the contiguous run around the brightest one whose smoothed signal
+    Automatic row choice: every row is cleaned of outliers first (see the module docstring);
+    each row's total signal (sum along the dispersion axis) is then smoothed with a running
+    median over five rows; the rows used are the contiguous run around the brightest one whose smoothed signal
     is at least ``row_fraction`` of the way from the faintest row's signal to the brightest's
     (a uniform pedestal such as scattered light does not matter). If no row has positive
     signal, or all rows are equal, all rows are used.
@@ -103,31 +104,32 @@ def extract_spectrum(frame: Frame, *, rows: tuple[int, int] | None = None, clip:
         raise ValueError(msg)
     data, variance, bad, saturated = (_spatial_first(a, frame.dispersion_axis)
                                       for a in (frame.data, frame.variance, frame.bad, frame.saturated))
-    n_spatial = data.shape[0]
+    n_spatial, n_disp = data.shape
     if rows is None:
-        start, stop = _illuminated_rows(data, row_fraction)
+        lo, hi = 0, n_spatial
     else:
-        start, stop = int(rows[0]), int(rows[1])
-        if not 0 <= start < stop <= n_spatial:
+        lo, hi = int(rows[0]), int(rows[1])
+        if not 0 <= lo < hi <= n_spatial:
             msg = f"rows {rows} must satisfy 0 <= start < stop <= {n_spatial}"
             raise ValueError(msg)
-    masked = bad[start:stop] & ~saturated[start:stop]
-    n_disp = data.shape[1]
-    flux = np.empty(n_disp)
-    var = np.empty(n_disp)
+    masked = bad[lo:hi] & ~saturated[lo:hi]
+    clean = np.empty((hi - lo, n_disp), dtype=np.float32)
+    clean_var = np.empty((hi - lo, n_disp), dtype=np.float32)
     for c0 in range(0, n_disp, _BLOCK):
         cols = slice(c0, min(c0 + _BLOCK, n_disp))
-        flux[cols], var[cols] = _collapse(data[start:stop, cols], variance[start:stop, cols],
-                                          masked[:, cols], clip)
+        clean[:, cols], clean_var[:, cols] = _clean(data[lo:hi, cols], variance[lo:hi, cols],
+                                                    masked[:, cols], clip)
+    start, stop = _illuminated_rows(clean, row_fraction) if rows is None else (0, hi - lo)
+    used = slice(start, stop)
     offset = frame.origin[frame.dispersion_axis]
     return Spectrum(
         x=np.arange(n_disp, dtype=np.float64) + offset,
-        flux=flux,
-        variance=var,
-        saturated=saturated[start:stop].any(axis=0),
-        bad=masked.mean(axis=0) > _BAD_FRACTION,
+        flux=clean[used].sum(axis=0, dtype=np.float64),
+        variance=clean_var[used].sum(axis=0, dtype=np.float64),
+        saturated=saturated[lo:hi][used].any(axis=0),
+        bad=masked[used].mean(axis=0) > _BAD_FRACTION,
         n_rows=stop - start,
-        rows=(start, stop),
+        rows=(lo + start, lo + stop),
         binning=int(frame.binning[frame.dispersion_axis]),
     )
 
@@ -163,46 +165,92 @@ def _median5(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, e: np.n
     return _median3(e, low, high)
 
 
-def _running_median(block: np.ndarray) -> np.ndarray:
+def _alternating(n: int, start: int = 0) -> np.ndarray:
+    """Column of ``n`` values alternately huge and negative-huge (neutral in a median)."""
+    return np.where((np.arange(start, start + n) % 2 == 0), _HUGE, -_HUGE).astype(np.float32)[:, None]
+
+
+def _running_median(block: np.ndarray, groups: int = 3) -> np.ndarray:
     """Robust local value of each pixel from its neighbours along axis 0 (the slit).
 
-    With at least 15 rows: the median of the three medians of five consecutive pixels centred
-    on the pixel and five rows either side (15 pixels in all). A cosmic-ray track of up to five
-    pixels along the slit spoils at most one of the three medians, so it cannot pull the
-    result. Shorter slits use the median of five, or of three, neighbouring pixels.
+    The median of ``groups`` (3 or 5) medians of five consecutive pixels, centred on the pixel
+    and on every fifth row either side (15 or 25 rows in all). A cosmic-ray track along the
+    slit spoils a group only when it covers most of it: with three groups a track of up to five
+    pixels cannot pull the result, with five groups one of up to ten. Slits shorter than the
+    window use fewer groups, or the median of five or three neighbouring pixels. Beyond the
+    ends the block is padded with alternately huge and negative-huge values, which leave the
+    medians to the real pixels; an outer group lying wholly beyond an end is replaced by the
+    lower of the central group and its mirror group on the other side (so that neither a
+    cosmic ray at the end nor a bright neighbour of a dark end row is taken as the local value).
     """
-    n = block.shape[0]
-    if n >= 15:
-        p = np.pad(block, ((7, 7), (0, 0)), mode="reflect")
-        m = _median5(p[0:n + 10], p[1:n + 11], p[2:n + 12], p[3:n + 13], p[4:n + 14])
-        return _median3(m[0:n], m[5:n + 5], m[10:n + 10])
-    if n >= 5:
-        p = np.pad(block, ((2, 2), (0, 0)), mode="reflect")
-        return _median5(p[0:n], p[1:n + 1], p[2:n + 2], p[3:n + 3], p[4:n + 4])
-    p = np.pad(block, ((1, 1), (0, 0)), mode="reflect")
-    return _median3(p[0:n], p[1:n + 1], p[2:n + 2])
+    n, m = block.shape
+    groups = 5 if groups == 5 and n >= 25 else 3 if n >= 15 else 1
+    reach = 5 * (groups // 2)
+    pad = reach + 2 if groups > 1 else (2 if n >= 5 else 1)
+    p = np.empty((n + 2 * pad, m), dtype=np.float32)
+    p[pad:pad + n] = block
+    p[:pad] = _alternating(pad)
+    p[pad + n:] = _alternating(pad, pad + n)
+    if groups == 1:
+        if n >= 5:
+            return _median5(p[0:n], p[1:n + 1], p[2:n + 2], p[3:n + 3], p[4:n + 4])
+        return _median3(p[0:n], p[1:n + 1], p[2:n + 2])
+    size = n + 2 * reach
+    med = _median5(p[0:size], p[1:size + 1], p[2:size + 2], p[3:size + 3], p[4:size + 4])
+    # med[reach + r + o] is the median of rows r + o - 2 .. r + o + 2
+    shifted = {o: med[reach + o:reach + o + n].copy() for o in range(-reach, reach + 1, 5)}
+    centre = shifted[0]
+    for o in range(5, reach + 1, 5):
+        low, high = max(o - 2, 0), n - o + 2  # rows whose group at -o (+o) lies beyond the end
+        shifted[-o][:low] = np.minimum(centre[:low], shifted[o][:low])
+        shifted[o][high:] = np.minimum(centre[high:], shifted[-o][high:])
+    if groups == 3:
+        return _median3(shifted[-5], shifted[0], shifted[5])
+    return _median5(shifted[-10], shifted[-5], shifted[0], shifted[5], shifted[10])
 
 
-def _collapse(data: np.ndarray, variance: np.ndarray, masked: np.ndarray,
-              clip: float) -> tuple[np.ndarray, np.ndarray]:
-    """Robust sum over axis 0 of one block of columns; returns flux and variance."""
+def _clean(data: np.ndarray, variance: np.ndarray, masked: np.ndarray,
+           clip: float) -> tuple[np.ndarray, np.ndarray]:
+    """One block of columns with outliers replaced by their local value; returns the cleaned
+    values and variances.
+
+    Rejection is repeated (at most twice more) on the columns where it found something, with
+    the pixels already rejected left out and a window of 25 rather than 15 rows: the rest of a
+    cosmic-ray track longer than the first window tolerates is caught once its middle is gone.
+    """
     n = data.shape[0]
     if n < 3:
-        return data.sum(axis=0, dtype=np.float64), variance.sum(axis=0, dtype=np.float64)
-    if masked.any():
-        # masked pixels alternately huge and negative-huge: the medians ignore them
-        alternate = np.where((np.arange(n) % 2 == 0)[:, None], _HUGE, -_HUGE).astype(np.float32)
-        local = _fill_unreliable(_running_median(np.where(masked, alternate, data)), data, masked)
+        return data, variance
+    clean, clean_var, out = _reject(data, variance, masked, clip)
+    cols = np.flatnonzero((out & ~masked).any(axis=0))
+    for _ in range(2):
+        if cols.size == 0:
+            break
+        d, v, o = data[:, cols], variance[:, cols], out[:, cols]
+        clean[:, cols], clean_var[:, cols], again = _reject(d, v, o, clip, groups=5)
+        changed = (again & ~o).any(axis=0)
+        out[:, cols] = again
+        cols = cols[changed]
+    return clean, clean_var
+
+
+def _reject(data: np.ndarray, variance: np.ndarray, left_out: np.ndarray, clip: float, *,
+            groups: int = 3) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """One rejection pass: cleaned values, their variances and the rejected pixels.
+
+    ``left_out`` pixels are excluded from the local medians and always rejected.
+    """
+    n = data.shape[0]
+    if left_out.any():
+        local = _running_median(np.where(left_out, _alternating(n), data), groups)
+        local = _fill_unreliable(local, data, left_out)
     else:
-        local = _running_median(data)
+        local = _running_median(data, groups)
     zero = np.float32(0.0)
-    read_var = variance - np.maximum(data, zero)
-    local_var = np.maximum(local, zero) + read_var
+    local_var = np.maximum(local, zero) + (variance - np.maximum(data, zero))
     deviation = data - local
-    reject = (deviation * deviation > np.float32(clip * clip) * local_var) | masked
-    flux = np.where(reject, local, data).sum(axis=0, dtype=np.float64)
-    var = np.where(reject, local_var, variance).sum(axis=0, dtype=np.float64)
-    return flux, var
+    reject = (deviation * deviation > np.float32(clip * clip) * local_var) | left_out
+    return np.where(reject, local, data), np.where(reject, local_var, variance), reject
 
 
 def _fill_unreliable(local: np.ndarray, data: np.ndarray, masked: np.ndarray) -> np.ndarray:

@@ -282,6 +282,8 @@ def _initial_fwhm(data: _Data, min_snr: float) -> float:
     idx = idx[np.argsort(r[idx])[::-1][:40]]
     widths = []
     for i in idx:
+        if r[i] <= 0:
+            continue
         half = r[i] / 2.0
         left = _half_crossing(r, i, half, -1)
         right = _half_crossing(r, i, half, +1)
@@ -593,10 +595,10 @@ def _fit_batch(data: _Data, base: np.ndarray, res: _Result, units: np.ndarray, h
         gain = actual / np.maximum(predicted, 1e-300)
         better = (actual >= -1e-12 * chi2) & ~done
         theta = np.where(better[:, None], trial, theta)
-        # converged: the step moves the parameters by < 1e-3 of their uncertainty (chi-square
-        # change < 1e-6), or by < 1e-5 pixel
+        # converged: the step moves the parameters by < 1 % of their uncertainty (chi-square
+        # change < 1e-4), or by < 1e-5 pixel
         small = np.all(np.abs(change[:, :g]) < 1e-5, axis=1) & (np.abs(change[:, i_s]) < 1e-5)
-        done |= small | (better & (predicted < 1e-6)) | (lam > 1e10)
+        done |= small | (better & (predicted < 1e-4)) | (lam > 1e10)
         # Marquardt-style damping control from the ratio of actual to predicted reduction
         lam = np.where(~better, lam * 4.0,
                        np.where(gain > 0.75, np.maximum(lam / 3.0, 1e-7), np.where(gain < 0.25, lam * 2.0, lam)))
