@@ -238,6 +238,8 @@ def test_image_in_extension_with_merged_header(tmp_path):
         read_frame(path, camera(), hdu="RAW")
     with pytest.raises(FrameError, match=r"mef\.fits.*HDU 1 holds no image"):
         read_frame(path, camera(), hdu=1)
+    with pytest.raises(FrameError, match=r"mef\.fits.*no HDU 7"):
+        read_frame(path, camera(), hdu=7)
 
 
 def test_frame_from_array_matches_read_frame(tmp_path):

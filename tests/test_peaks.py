@@ -168,6 +168,18 @@ def test_fwhm_estimated_automatically(sigma):
     assert np.median(good["fwhm"]) == pytest.approx(sigma * FWHM_PER_SIGMA, rel=0.02)
 
 
+def test_faint_lines_without_width_guess():
+    # every line below the S/N needed to measure a width directly (10): the finder starts from
+    # its default width and still finds all of them, with the right width
+    rng = np.random.default_rng(31)
+    n, sigma = 2000, 2.0
+    centres = np.arange(100.0, 1900.0, 100.0) + 0.3
+    expected = line_profile(n, centres, 400.0, sigma) + 50.0
+    peaks = find_peaks(noisy_spectrum(rng, expected, 5.0))
+    assert np.all(match(peaks.table, centres) >= 0) and len(peaks) == centres.size
+    assert peaks.fwhm_typical == pytest.approx(sigma * FWHM_PER_SIGMA, rel=0.1)
+
+
 def test_sloped_scattered_light_is_removed():
     rng = np.random.default_rng(11)
     n, sigma = 4096, 1.3

@@ -210,7 +210,7 @@ def _read_image(path: Path, which: int | str | None,
                         header.append(card)
     except FrameError:
         raise
-    except OSError as exc:
+    except (OSError, ValueError, fits.VerifyError) as exc:
         if "SIMPLE" in str(exc) or path.stat().st_size == 0 or "Empty or corrupt" in str(exc):
             msg = f"{path}: not a FITS file (or its header is truncated or corrupt): {exc}"
         else:
@@ -232,6 +232,8 @@ def _image_hdu_index(path: Path, hdul: fits.HDUList, which: int | str | None) ->
     if which is not None:
         try:
             index = hdul.index_of(which)
+            if not 0 <= index < len(hdul):
+                raise IndexError(index)
         except (KeyError, IndexError):
             msg = f"{path}: has no HDU {which!r} (HDUs: {[h.name for h in hdul]})"
             raise FrameError(msg) from None

@@ -2,12 +2,13 @@
 
 Steps of :func:`find_peaks`:
 
-1. **Line width.** Unless given, the typical FWHM is estimated from the half-maximum widths of
-   the brightest isolated maxima, and refined as the median fitted FWHM of isolated,
-   unsaturated lines.
-2. **Continuum.** A running median over about eight FWHM, recomputed with the pixels of
-   detected lines (and one FWHM around them) replaced by the current estimate, then smoothed
-   with a running mean. This removes scattered light and continuum without eating the lines.
+1. **Line width.** Unless given, the typical FWHM is first estimated from the half-maximum
+   widths of the brightest isolated maxima; after the fits it is the median fitted FWHM of
+   isolated, unsaturated lines (everything is redone once if that differs by more than 25 %).
+2. **Continuum.** A running median over ten FWHM (at least 31 pixels) of the pixels that are
+   not part of a line (pixels 3 sigma above the current estimate, grown by one FWHM, are left
+   out), iterated three times and smoothed with a running mean. This removes scattered light
+   and continuum without eating the lines.
 3. **Detection.** The continuum-subtracted spectrum is cross-correlated with the line profile
    (a matched filter); its signal-to-noise ratio against the noise model (the spectrum's
    variance) must reach ``min_snr`` at a local maximum.
@@ -22,6 +23,10 @@ Steps of :func:`find_peaks`:
    of a given number of lines are solved at once by a vectorised Levenberg–Marquardt iteration;
    the wings of neighbouring lines outside a fit are subtracted using their current estimates,
    and the whole pass is repeated once with the updated neighbours.
+5. **Second look.** The matched filter is run again on the residual of the fits (allowing 3 %
+   of the fitted profile as model error); lines it finds more than one FWHM from every fitted
+   line (typically faint lines in the wings of bright ones) are added and everything is fitted
+   again.
 
 Uncertainties come from the inverse of the weighted normal matrix at the solution, i.e. from
 the noise model alone (not rescaled by the reduced chi-square, which is reported separately).
@@ -44,6 +49,9 @@ __all__ = ["PeakFlag", "PeakTable", "describe_flags", "find_peaks", "COLUMNS"]
 #: FWHM of a Gaussian in units of its standard deviation.
 FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
+#: Starting FWHM (pixels) when no line is bright enough to measure one (common practice:
+#: spectrographs sample the line width with 2-4 pixels).
+_DEFAULT_FWHM = 3.0
 #: A line is of ODD_WIDTH when its FWHM differs from the expected one by more than this factor.
 _ODD_WIDTH_RATIO = 1.25
 #: Fraction of the fitted line profile allowed as model error when looking for lines hidden in
@@ -139,7 +147,8 @@ def find_peaks(spectrum: Spectrum, *, min_snr: float = 5.0, fwhm_guess: float | 
     min_snr : float
         Detection threshold: signal-to-noise ratio of the matched-filter flux estimate.
     fwhm_guess : float, optional
-        Starting FWHM in pixels; estimated from the spectrum when omitted.
+        Starting FWHM in pixels; estimated from the spectrum when omitted (3 pixels when no
+        line is bright enough for that).
     edge_margin : float, optional
         Lines closer than this (pixels) to an end of the spectrum or to a bad pixel are flagged
         EDGE. Default: two typical FWHM.
@@ -167,7 +176,7 @@ def find_peaks(spectrum: Spectrum, *, min_snr: float = 5.0, fwhm_guess: float | 
     data = _Data(flux, variance, usable, saturated)
     fwhm = float(fwhm_guess) if fwhm_guess is not None else _initial_fwhm(data, min_snr)
     if not np.isfinite(fwhm):
-        return _empty(math.nan)
+        fwhm = _DEFAULT_FWHM
     for attempt in range(2):
         result = _measure(data, fwhm, min_snr, blend_separation)
         typical = _typical_fwhm(result, fwhm, min_snr)
@@ -269,7 +278,8 @@ def _window(value: float, n: int) -> int:
 
 
 def _initial_fwhm(data: _Data, min_snr: float) -> float:
-    """Median half-maximum width of the brightest isolated maxima (NaN if none)."""
+    """Median half-maximum width of the brightest (S/N > 10 in three pixels) isolated maxima
+    (NaN if none)."""
     base = median_filter(data.flux, size=_window(101, data.n), mode="nearest")
     r = data.flux - base
     smooth = uniform_filter1d(r, size=3, mode="nearest")
