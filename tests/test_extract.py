@@ -6,7 +6,6 @@ over the rows: variances of independent pixels add).
 """
 from __future__ import annotations
 
-import time
 from dataclasses import replace
 
 import numpy as np
@@ -112,7 +111,8 @@ def test_automatic_rows_and_cosmic_ray_in_dark_rows():
     spectrum = extract_spectrum(frame_from_array(data, camera((n_rows, n_cols))))
     assert spectrum.rows == (60, 150) and spectrum.n_rows == 90
     # a higher threshold selects the same lit block
-    assert extract_spectrum(frame_from_array(data, camera((n_rows, n_cols))), row_fraction=0.6).rows == (60, 150)
+    frame = frame_from_array(data, camera((n_rows, n_cols)))
+    assert extract_spectrum(frame, row_fraction=0.6).rows == (60, 150)
     # lit rows three rows from the frame's end: the dark end rows are not filled with light
     expected = arc_image(rng, n_rows, n_cols, [150.0, 400.0], [500.0, 800.0], lit=(3, 100))
     frame = frame_from_array(observe(rng, expected), camera((n_rows, n_cols)))
@@ -167,16 +167,6 @@ def test_invalid_rows():
         extract_spectrum(frame, rows=(0, 41))
 
 
-def test_speed_4096_by_512():
-    rng = np.random.default_rng(6)
-    data = rng.normal(100.0, 10.0, (512, 4096)).astype(np.float32)
-    frame = frame_from_array(data, camera((512, 4096)))
-    extract_spectrum(frame)
-    best = min(_timed(extract_spectrum, frame) for _ in range(3))
-    # target "well under 0.3 s" (measured ~0.035 s on 2 shared cores)
-    assert best < 0.3
-
-
 def test_one_row_frame():
     frame = frame_from_array(np.linspace(0, 10, 100), camera((40, 100)))
     spectrum = extract_spectrum(frame)
@@ -185,7 +175,3 @@ def test_one_row_frame():
     assert replace(spectrum, binning=2).binning == 2
 
 
-def _timed(func, *args):
-    start = time.perf_counter()
-    func(*args)
-    return time.perf_counter() - start

@@ -208,7 +208,8 @@ def test_bundled_longslit_profile_with_overscan(tmp_path):
     frame = read_frame(path, profile)
     assert frame.shape == (512, 4096)
     np.testing.assert_allclose(frame.data, 100.0 * det.gain_e_per_adu, rtol=1e-6)
-    np.testing.assert_allclose(frame.variance, 100.0 * det.gain_e_per_adu + det.read_noise_e ** 2, rtol=1e-6)
+    np.testing.assert_allclose(frame.variance, 100.0 * det.gain_e_per_adu + det.read_noise_e ** 2,
+                               rtol=1e-6)
 
 
 def test_one_dimensional_spectrum_becomes_one_row(tmp_path):

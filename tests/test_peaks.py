@@ -11,7 +11,6 @@ Synthetic spectra are invented test data (no instrument); every random draw is s
 from __future__ import annotations
 
 import json
-import time
 
 import numpy as np
 import pytest
@@ -366,19 +365,3 @@ def test_invalid_input():
         find_peaks(spectrum, fwhm_guess=-1.0)
 
 
-def test_speed_4096_pixels_100_lines():
-    rng = np.random.default_rng(29)
-    n = 4096
-    centres = np.sort(rng.uniform(20, n - 20, 100))
-    expected = line_profile(n, centres, 10 ** rng.uniform(3, 5, 100), 1.3) + 100.0 + 0.1 * np.arange(n)
-    spectrum = noisy_spectrum(rng, expected, 5.0)
-    find_peaks(spectrum)
-    best = min(_timed(find_peaks, spectrum) for _ in range(3))
-    # target 0.15 s (measured ~0.07 s on 2 shared cores); the margin absorbs a loaded machine
-    assert best < 0.3
-
-
-def _timed(func, *args):
-    start = time.perf_counter()
-    func(*args)
-    return time.perf_counter() - start

@@ -158,7 +158,7 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
                         lam_err[assoc.line], fit_mask=~assoc.crowded, free_grooves=free_grooves)
         model, fitted, tolerance = fit.model, assoc, assoc_tol
         assoc_tol = float(np.clip(5.0 * fit.rms_px, 0.3, ident.best.tolerance_px))
-        new = associate(model, x, lam, assoc_tol, blend_px=max(fwhm, 1.0))
+        new = associate(model, x, lam, assoc_tol, blend_px=max(1.5 * fwhm, 1.0))
         if np.array_equal(new.peak, assoc.peak) and np.array_equal(new.line, assoc.line):
             break
         assoc = new

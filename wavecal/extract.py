@@ -90,8 +90,8 @@ def extract_spectrum(frame: Frame, *, rows: tuple[int, int] | None = None, clip:
     -----
     Automatic row choice: every row is cleaned of outliers first (see the module docstring);
     each row's total signal (sum along the dispersion axis) is then smoothed with a running
-    median over five rows; the rows used are the contiguous run around the brightest one whose smoothed signal
-    is at least ``row_fraction`` of the way from the faintest row's signal to the brightest's
+    median over five rows; the rows used are the contiguous run around the brightest one whose
+    smoothed signal is at least ``row_fraction`` of the way from the faintest row's signal to the brightest's
     (a uniform pedestal such as scattered light does not matter). If no row has positive
     signal, or all rows are equal, all rows are used.
 

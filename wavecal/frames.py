@@ -199,7 +199,8 @@ def _read_image(path: Path, which: int | str | None,
             try:
                 data = image.data
             except (ValueError, OSError, TypeError) as exc:
-                msg = f"{path}: cannot read the image data of HDU {index} (truncated or corrupt file?): {exc}"
+                msg = (f"{path}: cannot read the image data of HDU {index} "
+                       f"(truncated or corrupt file?): {exc}")
                 raise FrameError(msg) from None
             _raise_if_truncated(path, caught)
             data = np.array(data, copy=True)
@@ -321,7 +322,8 @@ def _one_dimensional(adu: np.ndarray, finite: np.ndarray, profile: InstrumentPro
         if level.size == adu.size:
             level = level[lo:hi]
         elif level.size != hi - lo:
-            msg = f"{where}: bias of size {level.size} matches neither the spectrum ({adu.size}) nor its trim"
+            msg = (f"{where}: bias of size {level.size} matches neither the spectrum ({adu.size}) "
+                   "nor its trimmed length")
             raise FrameError(msg)
         adu = adu[lo:hi] - level
     else:
