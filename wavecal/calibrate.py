@@ -20,16 +20,29 @@ from .extract import Spectrum, extract_spectrum
 from .fit import PHYSICAL_PARAMETERS, FitResult, fit_lines
 from .frames import Frame, read_frame
 from .linelists import LineList, load_line_list
-from .match import Identification, associate, chance_log10_probability, identify_lines
+from .match import (Identification, associate, blend_distance_px, chance_log10_probability,
+                    identify_lines)
 from .model_setup import PriorBox, nominal_model, prior_box
 from .optics import GratingModel
-from .peaks import PeakTable, find_peaks
+from .peaks import PeakFlag, PeakTable, find_peaks
 from .profile import InstrumentProfile
 from .solution import SPEED_OF_LIGHT_KMS, Solution
-from .verdict import VerdictInputs, judge
+from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 
 __all__ = ["calibrate_frame", "Calibration", "LINE_UNCERTAINTY_VERIFIED_NM",
            "LINE_UNCERTAINTY_UNVERIFIED_NM"]
+
+#: Peak-finder flags marking a line that is probably two unresolved lines: identified, not fitted.
+_UNRESOLVED_FLAGS = int(PeakFlag.ODD_WIDTH | PeakFlag.POOR_FIT)
+
+#: Leave-one-out residual (pixels) below which a used line counts as confirmed by the others
+#: (or five times its uncertainty, if larger).
+CONFIRM_PX = 0.3
+#: At most this many lines are dropped as unconfirmed.
+_MAX_UNCONFIRMED = 4
+
+#: Smallest window (pixels) assumed for chance coincidences in the significance test.
+_MIN_CHANCE_WINDOW_PX = 0.1
 
 #: Wavelength uncertainty given to line-list values checked against NIST (nm).
 LINE_UNCERTAINTY_VERIFIED_NM = 0.0005
@@ -141,35 +154,76 @@ def _line_sigma(lines: LineList) -> np.ndarray:
     return np.where(lines.verified, LINE_UNCERTAINTY_VERIFIED_NM, LINE_UNCERTAINTY_UNVERIFIED_NM)
 
 
+def _converge(model, box, x, x_err, lam, lam_err, assoc, tolerance, unresolved, fwhm,
+              free_grooves):
+    """Alternate fit and re-association until the identification is stable.
+
+    Returns the last fit, the association it was made on, that association's tolerance and
+    the pairs kept out of the fit (blends), or ``(None, ...)`` when too few lines remain.
+    """
+    fit, fitted, fitted_tol = None, assoc, tolerance
+    for _ in range(4):
+        excluded = assoc.crowded | unresolved[assoc.peak]
+        if np.count_nonzero(~excluded) < 3:
+            break
+        fit = fit_lines(model, box, x[assoc.peak], x_err[assoc.peak], lam[assoc.line],
+                        lam_err[assoc.line], fit_mask=~excluded, free_grooves=free_grooves)
+        model, fitted, fitted_tol = fit.model, assoc, tolerance
+        tolerance = float(np.clip(5.0 * fit.rms_px, 0.3, tolerance))
+        new = associate(model, x, lam, tolerance, blend_px=blend_distance_px(fwhm))
+        if np.array_equal(new.peak, assoc.peak) and np.array_equal(new.line, assoc.line):
+            break
+        assoc = new
+    return fit, fitted, fitted_tol, fitted.crowded | unresolved[fitted.peak]
+
+
+def _confirm(fit: FitResult, box, x, x_err, lam, lam_err, excluded, free_grooves):
+    """Drop, one at a time, used lines that the other lines do not confirm.
+
+    A line is confirmed when its leave-one-out residual is within
+    max(:data:`CONFIRM_PX`, 5 σ √χ²_red); an unconfirmed line (typically alone beyond a gap,
+    where the model bends to whatever it is paired with) leaves the fit, so that the range
+    covered by the solution only spans confirmed lines.
+    """
+    unconfirmed = np.zeros(x.size, bool)
+    for _ in range(_MAX_UNCONFIRMED):
+        sigma = np.hypot(x_err, lam_err / np.abs(fit.model.dispersion(x)))
+        limit = np.maximum(CONFIRM_PX, 5.0 * sigma * np.sqrt(max(fit.redchi, 1.0)))
+        ratio = np.abs(fit.leave_one_out_px) / limit
+        ratio[~fit.used | ~np.isfinite(ratio)] = 0.0
+        worst = int(np.argmax(ratio))
+        if ratio[worst] <= 1.0 or fit.n_used <= MIN_LINES_FAILED:
+            break
+        unconfirmed[worst] = True
+        fit = fit_lines(fit.model, box, x, x_err, lam, lam_err, fit_mask=~excluded & ~unconfirmed,
+                        free_grooves=free_grooves)
+    return fit, unconfirmed
+
+
 def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: LineList,
                    ident: Identification, box: PriorBox, fwhm: float, free_grooves: bool):
     x = table["x"].to_numpy(float)
     x_err = table["x_err"].to_numpy(float)
     lam = lines.wavelength_nm
     lam_err = _line_sigma(lines)
-    model = ident.best.model
-    assoc = ident.best.association
-    assoc_tol = ident.best.tolerance_px
-    fit, fitted, tolerance = None, assoc, assoc_tol
-    for _ in range(4):
-        if np.count_nonzero(~assoc.crowded) < 3:
-            break
-        fit = fit_lines(model, box, x[assoc.peak], x_err[assoc.peak], lam[assoc.line],
-                        lam_err[assoc.line], fit_mask=~assoc.crowded, free_grooves=free_grooves)
-        model, fitted, tolerance = fit.model, assoc, assoc_tol
-        assoc_tol = float(np.clip(5.0 * fit.rms_px, 0.3, ident.best.tolerance_px))
-        new = associate(model, x, lam, assoc_tol, blend_px=max(1.5 * fwhm, 1.0))
-        if np.array_equal(new.peak, assoc.peak) and np.array_equal(new.line, assoc.line):
-            break
-        assoc = new
+    unresolved = (table["flags"].to_numpy(int) & _UNRESOLVED_FLAGS) != 0
+    fit, fitted, tolerance, crowded = _converge(
+        ident.best.model, box, x, x_err, lam, lam_err, ident.best.association,
+        ident.best.tolerance_px, unresolved, fwhm, free_grooves)
     if fit is None:
         return _failed(profile, frame, lamps, table, ("too few unblended lines identified",)), None
-    pairs_peak, pairs_line, crowded = fitted.peak, fitted.line, fitted.crowded
+    pairs_peak, pairs_line = fitted.peak, fitted.line
+    fit, unconfirmed = _confirm(fit, box, x[pairs_peak], x_err[pairs_peak], lam[pairs_line],
+                                lam_err[pairs_line], crowded, free_grooves)
+    model = fit.model
 
     used_peaks = pairs_peak[fit.used]
     density = max(np.count_nonzero((model.pixel(lam) >= 0) & (model.pixel(lam) <= model.n_pixels - 1)), 1) \
         / model.n_pixels
-    log10_chance = chance_log10_probability(len(pairs_peak), x.size, density, tolerance,
+    # the window that chance coincidences would have had to hit: the association tolerance, or
+    # four times the residual RMS when the lines sit much closer than that (never below 0.1 px)
+    window = float(np.clip(4.0 * fit.rms_px, _MIN_CHANCE_WINDOW_PX, tolerance))
+    log10_chance = chance_log10_probability(len(pairs_peak), x.size, density, window,
                                             n_free=2 + max(fit.distortion_degree - 2, 0))
     priors = box.as_dict()
     shifts = {n: (getattr(model, n) - priors[n][0]) / priors[n][1] for n in PHYSICAL_PARAMETERS}
@@ -182,7 +236,7 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
         effective_geometry=box.effective))
 
     lines_df = _line_table(table, model, lines, full_list, pairs_peak, pairs_line, fit.used,
-                           crowded, fwhm)
+                           crowded, unconfirmed, fwhm)
     used_lam = lam[pairs_line[fit.used]]
     rms_nm = float(np.sqrt(np.mean((model.wavelength(x[used_peaks]) - used_lam) ** 2))) \
         if used_peaks.size else math.nan
@@ -196,7 +250,9 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
                            "shift_sigma": float((value - nominal) / width) if width == width else math.nan})
     statistics = {
         "rms_px": fit.rms_px, "rms_nm": rms_nm, "rms_kms": rms_kms, "redchi": fit.redchi,
-        "n_used": fit.n_used, "n_rejected": int(np.count_nonzero(~fit.used & ~crowded)),
+        "n_used": fit.n_used,
+        "n_rejected": int(np.count_nonzero(~fit.used & ~crowded & ~unconfirmed)),
+        "n_unconfirmed": int(np.count_nonzero(unconfirmed)),
         "n_blends": int(np.count_nonzero(crowded)), "n_peaks": int(x.size),
         "n_identified": int(len(pairs_peak)), "distortion_degree": fit.distortion_degree,
         "log10_chance": log10_chance, "log10_trials": ident.log10_trials,
@@ -216,7 +272,7 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
 
 
 def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_list: LineList,
-                pairs_peak, pairs_line, used, crowded, fwhm: float) -> pd.DataFrame:
+                pairs_peak, pairs_line, used, crowded, unconfirmed, fwhm: float) -> pd.DataFrame:
     x = table["x"].to_numpy(float)
     n = x.size
     out = pd.DataFrame({
@@ -229,7 +285,8 @@ def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_
     line_wl = np.full(n, np.nan)
     line_int = np.full(n, np.nan)
     verified = np.zeros(n, bool)
-    ident[pairs_peak] = np.where(crowded, "blend", np.where(used, "used", "rejected"))
+    ident[pairs_peak] = np.where(crowded, "blend", np.where(
+        used, "used", np.where(unconfirmed, "unconfirmed", "rejected")))
     element[pairs_peak] = lines.element[pairs_line]
     line_wl[pairs_peak] = lines.wavelength_nm[pairs_line]
     line_int[pairs_peak] = lines.intensity[pairs_line]
@@ -247,7 +304,7 @@ def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_
         verified[idx] = full_list.verified[ghosts.line]
     fit_wl = model.wavelength(x)
     residual_px = np.full(n, np.nan)
-    first_order = np.isin(ident, ["used", "rejected", "blend"])
+    first_order = np.isin(ident, ["used", "rejected", "blend", "unconfirmed"])
     residual_px[first_order] = x[first_order] - model.pixel(line_wl[first_order])
     residual_nm = np.where(first_order, fit_wl - line_wl, np.nan)
     out["identification"] = ident

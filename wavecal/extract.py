@@ -89,11 +89,12 @@ def extract_spectrum(frame: Frame, *, rows: tuple[int, int] | None = None, clip:
     Notes
     -----
     Automatic row choice: every row is cleaned of outliers first (see the module docstring);
-    each row's total signal (sum along the dispersion axis) is then smoothed with a running
-    median over five rows; the rows used are the contiguous run around the brightest one whose
-    smoothed signal is at least ``row_fraction`` of the way from the faintest row's signal to the brightest's
-    (a uniform pedestal such as scattered light does not matter). If no row has positive
-    signal, or all rows are equal, all rows are used.
+    each row's signal is then measured on the columns of the brightest lines (the top 3 % of
+    columns of the spectrum summed over all rows), less the row's median level, and smoothed
+    with a running median over five rows; the rows used are the contiguous run around the
+    brightest one whose smoothed signal is at least ``row_fraction`` of the way from the faintest
+    rows' level to the brightest (a uniform pedestal such as scattered light does not matter).
+    If that slit profile is not 5 sigma above its noise, all rows are used.
 
     A rejected pixel (see the module docstring) contributes the robust local value from its
     neighbours along the slit and that value's noise-model variance. Saturated pixels are kept
@@ -119,7 +120,7 @@ def extract_spectrum(frame: Frame, *, rows: tuple[int, int] | None = None, clip:
         cols = slice(c0, min(c0 + _BLOCK, n_disp))
         clean[:, cols], clean_var[:, cols] = _clean(data[lo:hi, cols], variance[lo:hi, cols],
                                                     masked[:, cols], clip)
-    start, stop = _illuminated_rows(clean, row_fraction) if rows is None else (0, hi - lo)
+    start, stop = _illuminated_rows(clean, clean_var, row_fraction) if rows is None else (0, hi - lo)
     used = slice(start, stop)
     offset = frame.origin[frame.dispersion_axis]
     return Spectrum(
@@ -139,19 +140,32 @@ def _spatial_first(array: np.ndarray, dispersion_axis: int) -> np.ndarray:
     return array if dispersion_axis == 1 else array.T
 
 
-def _illuminated_rows(data: np.ndarray, fraction: float) -> tuple[int, int]:
-    """Contiguous run of rows around the brightest one whose signal is at least ``fraction`` of
-    the way from the faintest row's to the brightest's."""
-    signal = data.sum(axis=1, dtype=np.float64)
-    if signal.size >= 5:
-        signal = median_filter(signal, size=5, mode="nearest")
-    peak = int(np.argmax(signal))
-    floor = float(signal.min())
-    if signal[peak] <= 0 or signal[peak] <= floor:
-        return 0, data.shape[0]
-    below = np.flatnonzero(signal < floor + fraction * (signal[peak] - floor))
+def _illuminated_rows(data: np.ndarray, variance: np.ndarray, fraction: float) -> tuple[int, int]:
+    """Contiguous run of rows around the brightest one, judged on the lines' columns.
+
+    The slit profile is measured where the light is: on the columns of the brightest lines of
+    the spectrum summed over all rows (the top 3 % of columns above the median), after removing
+    each row's own median level. A row belongs to the slit when its smoothed profile value is at
+    least ``fraction`` of the way from the faintest row to the brightest. When the profile is
+    not clearly above its noise (5 sigma), all rows are used.
+    """
+    n_rows, n_cols = data.shape
+    if n_rows < 5:
+        return 0, n_rows
+    collapsed = data.sum(axis=0, dtype=np.float64)
+    n_line = max(int(0.03 * n_cols), 3)
+    line_cols = np.argpartition(collapsed, -n_line)[-n_line:]
+    level = np.median(data, axis=1)
+    profile = data[:, line_cols].sum(axis=1, dtype=np.float64) - n_line * level
+    noise = np.sqrt(variance[:, line_cols].sum(axis=1, dtype=np.float64))
+    smooth = median_filter(profile, size=5, mode="reflect")
+    peak = int(np.argmax(smooth))
+    floor = float(np.median(np.sort(smooth)[: max(n_rows // 10, 1)]))
+    if smooth[peak] - floor < 5.0 * float(np.median(noise)):
+        return 0, n_rows
+    below = np.flatnonzero(smooth < floor + fraction * (smooth[peak] - floor))
     start = int(below[below < peak].max()) + 1 if (below < peak).any() else 0
-    stop = int(below[below > peak].min()) if (below > peak).any() else data.shape[0]
+    stop = int(below[below > peak].min()) if (below > peak).any() else n_rows
     return start, stop
 
 

@@ -53,6 +53,9 @@ class FitResult:
         Highest Legendre degree of the distortion term, 0 for none.
     success : bool
     message : str
+    leverage : ndarray
+        Diagonal of the hat matrix for every pair: how much a line's own position sets the
+        model there. A kept line's leave-one-out residual is ``residual_px / (1 - leverage)``.
     """
 
     model: GratingModel
@@ -70,6 +73,7 @@ class FitResult:
     distortion_degree: int
     success: bool
     message: str
+    leverage: np.ndarray
 
     @property
     def n_used(self) -> int:
@@ -81,6 +85,17 @@ class FitResult:
         """Unweighted RMS of the kept residuals (pixels)."""
         r = self.residual_px[self.used]
         return float(np.sqrt(np.mean(r**2))) if r.size else float("nan")
+
+    @property
+    def leave_one_out_px(self) -> np.ndarray:
+        """Residual of each kept line against the fit without it (pixels; NaN if not kept).
+
+        The usual linear approximation ``r / (1 - h)`` (h the leverage); it flags a line whose
+        identification the other lines do not confirm.
+        """
+        with np.errstate(divide="ignore", invalid="ignore"):
+            loo = self.residual_px / np.clip(1.0 - self.leverage, 1e-6, None)
+        return np.where(self.used, loo, np.nan)
 
     def parameter_table(self) -> list[dict]:
         """One dict per varied parameter: name, value, error."""
@@ -125,7 +140,7 @@ def _single_fit(start: GratingModel, box: PriorBox, x, lam, sigma_px, degree: in
 
     params = _make_params(start, box, degree, free_grooves)
     minimizer = lmfit.Minimizer(residual, params, scale_covar=False, nan_policy="raise")
-    return minimizer.leastsq(), _model_from
+    return minimizer.leastsq()
 
 
 def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarray,
@@ -168,9 +183,9 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
     n_base = len(PHYSICAL_PARAMETERS) + int(free_grooves)
 
     def run(model, degree, keep):
-        result, build = _single_fit(model, box, x[keep], lam[keep], sigma_px[keep], degree,
-                                    free_grooves, grooves_prior)
-        return result, build(result.params, model, degree)
+        result = _single_fit(model, box, x[keep], lam[keep], sigma_px[keep], degree,
+                             free_grooves, grooves_prior)
+        return result, _model_from(result.params, model, degree)
 
     def clip_pass(model, degree, keep):
         for _ in range(6):
@@ -227,8 +242,29 @@ def _summarise(result, model, x, lam, sigma_px, keep, degree, n_base) -> FitResu
         corr = cov.copy()
     residual = x - model.pixel(lam)
     bic = chisqr + n_par * np.log(max(n_data, 1))
+    leverage = _leverage(model, names, result.covar, x, sigma_px, errors)
     return FitResult(model=model, names=names, values=values, errors=errors, covariance=cov,
                      correlation=corr, used=keep, residual_px=residual,
                      normalized_residual=residual / sigma_px, chisqr=chisqr, redchi=redchi,
                      bic=float(bic), distortion_degree=degree, success=bool(result.success),
-                     message=str(result.message))
+                     message=str(result.message), leverage=leverage)
+
+
+def _leverage(model: GratingModel, names, covar, x, sigma_px, errors) -> np.ndarray:
+    """Diagonal of the hat matrix, J C Jᵀ, for every pair (NaN without a covariance).
+
+    J holds the derivatives of the normalised residuals with respect to the varied parameters
+    and C their unscaled covariance (priors included), so a line that no other line constrains
+    (say, alone beyond a gap) has a leverage near 1.
+    """
+    if covar is None or not np.all(np.isfinite(covar)):
+        return np.full(x.size, np.nan)
+    disp = np.abs(model.dispersion(x)) * sigma_px
+    jac = np.empty((x.size, len(names)))
+    for j, (name, err) in enumerate(zip(names, errors)):
+        step = 1e-3 * err if np.isfinite(err) and err > 0 else 1e-6
+        value = model.parameter(name)
+        up = model.with_parameters(**{name: value + step}).wavelength(x)
+        down = model.with_parameters(**{name: value - step}).wavelength(x)
+        jac[:, j] = (up - down) / (2 * step) / disp
+    return np.einsum("ij,jk,ik->i", jac, np.asarray(covar), jac)

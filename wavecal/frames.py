@@ -28,7 +28,6 @@ from typing import Any
 
 import numpy as np
 from astropy.io import fits
-from scipy.ndimage import median_filter
 
 from .errors import FrameError
 from .profile import InstrumentProfile
@@ -37,8 +36,8 @@ __all__ = ["Frame", "read_frame", "frame_from_array"]
 
 _log = logging.getLogger(__name__)
 
-#: Lines of the overscan strip over which the per-line overscan levels are median-smoothed.
-_OVERSCAN_SMOOTH_LINES = 9
+#: Degree of the robust Legendre fit to the per-line overscan levels.
+_OVERSCAN_DEGREE = 3
 
 #: Header keywords describing the file structure, not copied from the primary header.
 _STRUCTURAL = {"SIMPLE", "BITPIX", "NAXIS", "EXTEND", "PCOUNT", "GCOUNT", "XTENSION", "BZERO",
@@ -375,7 +374,7 @@ def _overscan_level(adu: np.ndarray, finite: np.ndarray, overscan: tuple[int, in
     """Robust overscan level: per line along the strip when it runs beside the data, else scalar.
 
     A strip of columns covering the trimmed rows gives one level per row (median across the
-    strip, then a running median over a few rows); a strip of rows covering the trimmed columns
+    strip, then a low-order robust fit along the strip); a strip of rows covering the trimmed columns
     gives one level per column. Otherwise the median of the whole region is used. Non-finite
     overscan pixels are replaced by the median of the finite ones.
     """
@@ -400,5 +399,23 @@ def _overscan_level(adu: np.ndarray, finite: np.ndarray, overscan: tuple[int, in
 
 
 def _smooth(levels: np.ndarray) -> np.ndarray:
-    """Running median of the per-line overscan levels."""
-    return median_filter(levels, size=min(_OVERSCAN_SMOOTH_LINES, levels.size), mode="nearest")
+    """Low-order robust fit to the per-line overscan levels.
+
+    A fit (Legendre, degree 3, three passes rejecting lines beyond 4 robust sigma) follows a
+    slow drift of the bias along the read-out without copying the per-line noise of the strip
+    into the data: a running median over a few lines would add correlated, line-like bumps
+    along the dispersion when the strip runs parallel to it (common practice: fit the overscan
+    with a low-order function).
+    """
+    n = levels.size
+    if n < 8:
+        return np.full(n, np.median(levels))
+    u = np.linspace(-1.0, 1.0, n)
+    keep = np.ones(n, bool)
+    for _ in range(3):
+        coeffs = np.polynomial.legendre.legfit(u[keep], levels[keep], _OVERSCAN_DEGREE)
+        fit = np.polynomial.legendre.legval(u, coeffs)
+        resid = levels - fit
+        scale = 1.4826 * np.median(np.abs(resid[keep])) or 1.0
+        keep = np.abs(resid) <= 4.0 * scale
+    return fit

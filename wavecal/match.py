@@ -28,7 +28,7 @@ from .model_setup import PriorBox
 from .optics import GratingModel
 
 __all__ = ["Association", "Hypothesis", "Identification", "associate", "identify_lines",
-           "chance_log10_probability"]
+           "chance_log10_probability", "blend_distance_px"]
 
 #: Coincidences the refinement can buy beyond the searched grid (tilt and offset within their
 #: priors); the searched grating angle and focal length are paid for by the trials factor.
@@ -40,6 +40,17 @@ _STAGE_PARAMETERS = (
     ("grating_angle_deg", "focal_length_mm", "tilt_deg"),
     ("grating_angle_deg", "focal_length_mm", "tilt_deg", "axis_pixel"),
 )
+#: The same for an unknown geometry, whose effective model needs its curvature (tilt) from the
+#: start and a distortion term to follow the true dispersion curve.
+_EFFECTIVE_STAGE_PARAMETERS = (
+    ("grating_angle_deg", "focal_length_mm", "tilt_deg"),
+    ("grating_angle_deg", "focal_length_mm", "tilt_deg", "axis_pixel"),
+    ("grating_angle_deg", "focal_length_mm", "tilt_deg", "axis_pixel", "distortion_3"),
+    ("grating_angle_deg", "focal_length_mm", "tilt_deg", "axis_pixel", "distortion_3",
+     "distortion_4"),
+)
+#: Prior width (pixels) of a distortion coefficient during the consensus step.
+_DISTORTION_PRIOR_PX = 20.0
 
 
 @dataclass(frozen=True)
@@ -245,10 +256,29 @@ def _votes_for_focal(model: GratingModel, x: np.ndarray, lines_nm: np.ndarray,
     return phi, peak
 
 
+def _tilt_grid(model: GratingModel, box: PriorBox, tolerance_px: float) -> np.ndarray:
+    """Detector tilts to scan: only the nominal one, unless the geometry is unknown.
+
+    For an unknown geometry the curvature of the dispersion is unknown; the tilt of the
+    effective model sets it, so it is scanned in steps that move the detector's edge by at most
+    two tolerances (at most 9 steps).
+    """
+    tau0, dtau = box.tilt_deg
+    if not box.effective:
+        return np.array([tau0])
+    edge = np.array([0.0, model.n_pixels - 1.0])
+    lam = model.wavelength(edge)
+    moved = model.with_parameters(tilt_deg=tau0 + 1.0).pixel(lam)
+    px_per_deg = float(np.nanmax(np.abs(moved - edge))) if np.all(np.isfinite(moved)) else 1.0
+    n_steps = int(np.clip(np.ceil(2 * dtau * px_per_deg / (2 * tolerance_px)), 1, 8))
+    return np.linspace(tau0 - dtau, tau0 + dtau, n_steps + 1) if n_steps > 1 else np.array([tau0])
+
+
 def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray,
                 n_pixels: int, *, tolerance_px: float, max_candidates: int):
-    """Best-voted (grating angle, focal length) cells, strongest first."""
+    """Best-voted (grating angle, focal length, tilt) cells, strongest first."""
     focal, deg_per_px = _vote_grid(model, box, n_pixels, tolerance_px)
+    tilts = _tilt_grid(model, box, tolerance_px)
     phi0, dphi = box.grating_angle_deg
     lo, hi = phi0 - 1.02 * dphi, phi0 + 1.02 * dphi
     bin_width = deg_per_px * tolerance_px
@@ -256,29 +286,30 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
     phi_samples = np.linspace(lo, hi, 48)
     window = np.ones(3)
     found = []
-    for f in focal:
-        trial = model.with_parameters(focal_length_mm=float(f))
-        phi, peak = _votes_for_focal(trial, x, lines_nm, phi_samples)
-        if phi.size == 0:
-            continue
-        b = np.floor((phi - lo) / bin_width).astype(int)
-        ok = (b >= 0) & (b < n_bins)
-        # one vote per peak per bin
-        key = np.unique(b[ok] * x.size + peak[ok])
-        hist = np.bincount(key // x.size, minlength=n_bins).astype(float)
-        smooth = np.convolve(hist, window, mode="same")
-        top = np.argpartition(smooth, -3)[-3:] if smooth.size > 3 else np.arange(smooth.size)
-        for t in top:
-            found.append((smooth[t], lo + (t + 0.5) * bin_width, float(f)))
+    for tau in tilts:
+        for f in focal:
+            trial = model.with_parameters(focal_length_mm=float(f), tilt_deg=float(tau))
+            phi, peak = _votes_for_focal(trial, x, lines_nm, phi_samples)
+            if phi.size == 0:
+                continue
+            b = np.floor((phi - lo) / bin_width).astype(int)
+            ok = (b >= 0) & (b < n_bins)
+            # one vote per peak per bin
+            key = np.unique(b[ok] * x.size + peak[ok])
+            hist = np.bincount(key // x.size, minlength=n_bins).astype(float)
+            smooth = np.convolve(hist, window, mode="same")
+            top = np.argpartition(smooth, -3)[-3:] if smooth.size > 3 else np.arange(smooth.size)
+            for t in top:
+                found.append((smooth[t], lo + (t + 0.5) * bin_width, float(f), float(tau)))
     found.sort(key=lambda c: -c[0])
-    chosen: list[tuple[float, float, float]] = []
-    for score, phi, f in found:
+    chosen: list[tuple[float, float, float, float]] = []
+    for score, phi, f, tau in found:
         if all(abs(phi - p) > 4 * bin_width or abs(f / g - 1) > 4 * 2 * tolerance_px / n_pixels
-               for _, p, g in chosen):
-            chosen.append((score, phi, f))
+               or tau != t for _, p, g, t in chosen):
+            chosen.append((score, phi, f, tau))
         if len(chosen) >= max_candidates:
             break
-    n_trials = n_bins * focal.size / 3.0
+    n_trials = n_bins * focal.size * tilts.size / 3.0
     return chosen, float(np.log10(max(n_trials, 1.0)))
 
 
@@ -286,9 +317,9 @@ def _fit_parameters(model: GratingModel, x: np.ndarray, lines: np.ndarray, names
                     box: PriorBox) -> GratingModel:
     """Least-squares fit of ``names`` to paired positions, with Gaussian priors (pixel units)."""
     priors = box.as_dict()
-    start = np.array([getattr(model, n) for n in names], dtype=float)
-    scale = np.array([priors[n][1] for n in names], dtype=float)
-    nominal = np.array([priors[n][0] for n in names], dtype=float)
+    start = np.array([model.parameter(n) for n in names], dtype=float)
+    scale = np.array([priors.get(n, (0.0, _DISTORTION_PRIOR_PX))[1] for n in names], dtype=float)
+    nominal = np.array([priors.get(n, (0.0, 0.0))[0] for n in names], dtype=float)
     disp = np.abs(model.dispersion(x))
 
     def residuals(p):
@@ -309,15 +340,29 @@ def _fit_parameters(model: GratingModel, x: np.ndarray, lines: np.ndarray, names
 
 def _refine(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray,
             schedule: tuple[float, ...], blend_px: float) -> tuple[GratingModel, Association]:
+    stages = _EFFECTIVE_STAGE_PARAMETERS if box.effective else _STAGE_PARAMETERS
     assoc = associate(model, x, lines_nm, schedule[0], blend_px=blend_px)
     for stage, tol in enumerate(schedule):
         assoc = associate(model, x, lines_nm, tol, blend_px=blend_px)
         if len(assoc) < 2:
             break
-        names = _STAGE_PARAMETERS[min(stage, len(_STAGE_PARAMETERS) - 1)]
+        names = stages[min(stage, len(stages) - 1)]
+        names = names[: max(len(assoc) - 2, 2)]  # never more parameters than pairs allow
         model = _fit_parameters(model, x[assoc.peak], lines_nm[assoc.line], names, box)
     assoc = associate(model, x, lines_nm, schedule[-1], blend_px=blend_px)
     return model, assoc
+
+
+def _central_peaks(x: np.ndarray, n_pixels: int) -> np.ndarray:
+    """Peaks in the middle of the detector, where an unknown curvature of the dispersion
+    (geometry not known) displaces lines least: the central 50 % if it holds six peaks, else the
+    central 75 %, else all."""
+    offset = np.abs(x - 0.5 * (n_pixels - 1)) / (0.5 * n_pixels)
+    for half_width in (0.5, 0.75):
+        inner = np.flatnonzero(offset <= half_width)
+        if inner.size >= 6:
+            return inner
+    return np.arange(x.size)
 
 
 def _is_rival(best: Hypothesis, other: Hypothesis, n_pixels: int) -> bool:
@@ -356,7 +401,7 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
     vote_weight : ndarray, optional
         Ranking of peaks (e.g. S/N); the strongest ``max_vote_peaks`` vote.
     fwhm_px : float
-        Typical line width; listed lines closer than this are unresolved blends.
+        Typical line width; listed lines closer than :func:`blend_distance_px` are unresolved.
     final_tolerance_px : float
         Association tolerance of the last consensus stage.
 
@@ -372,17 +417,19 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
         notes.append(f"too few peaks ({x.size}) or listed lines in range ({lines_nm.size}) to search")
         return Identification(None, None, 0, 0.0, tuple(notes))
     voters = np.arange(x.size)
-    if vote_weight is not None and x.size > max_vote_peaks:
-        voters = np.sort(np.argsort(vote_weight)[-max_vote_peaks:])
+    if box.effective:
+        voters = _central_peaks(x, n_pixels)
+    if vote_weight is not None and voters.size > max_vote_peaks:
+        voters = voters[np.sort(np.argsort(np.asarray(vote_weight)[voters])[-max_vote_peaks:])]
     vote_tol = 2.0 if not box.effective else 3.0
     chosen, log10_trials = _candidates(model, box, x[voters], lines_nm, n_pixels,
                                        tolerance_px=vote_tol, max_candidates=max_candidates)
     schedule = (8.0 * vote_tol, 4.0 * vote_tol, 2.0 * vote_tol, vote_tol,
                 max(final_tolerance_px, 0.25))
-    blend_px = max(fwhm_px, 1.0)
+    blend_px = blend_distance_px(fwhm_px)
     refined: list[Hypothesis] = []
-    for _, phi, f in chosen:
-        start = model.with_parameters(grating_angle_deg=phi, focal_length_mm=f)
+    for _, phi, f, tau in chosen:
+        start = model.with_parameters(grating_angle_deg=phi, focal_length_mm=f, tilt_deg=tau)
         fitted, assoc = _refine(start, box, x, lines_nm, schedule, blend_px)
         density = _line_density(fitted, lines_nm, n_pixels)
         log10_p = chance_log10_probability(len(assoc), x.size, density, schedule[-1],
@@ -395,6 +442,11 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
     best = refined[0]
     runner_up = next((h for h in refined[1:] if _is_rival(best, h, n_pixels)), None)
     return Identification(best, runner_up, len(refined), log10_trials, tuple(notes))
+
+
+def blend_distance_px(fwhm_px: float) -> float:
+    """Listed lines closer than this (1.5 FWHM, at least a pixel) are an unresolved blend."""
+    return max(1.5 * fwhm_px, 1.0)
 
 
 def _line_density(model: GratingModel, lines_nm: np.ndarray, n_pixels: int) -> float:

@@ -15,10 +15,15 @@ import numpy as np
 from .optics import GratingModel
 from .profile import InstrumentProfile
 
-__all__ = ["PriorBox", "nominal_model", "prior_box", "unbinned_to_binned", "EFFECTIVE_GROOVES_PER_MM"]
+__all__ = ["PriorBox", "nominal_model", "prior_box", "unbinned_to_binned", "EFFECTIVE_GROOVES_PER_MM",
+           "EFFECTIVE_PRIOR_MARGIN"]
 
 #: Groove density of the effective grating used for profiles of unknown geometry.
 EFFECTIVE_GROOVES_PER_MM = 600.0
+#: The effective model turns the stated centre and dispersion uncertainties into angle and
+#: focal-length ranges only approximately (its tilt also changes the central dispersion), so
+#: its search ranges are widened by this factor.
+EFFECTIVE_PRIOR_MARGIN = 1.4
 
 
 @dataclass(frozen=True)
@@ -139,9 +144,10 @@ def prior_box(profile: InstrumentProfile, model: GratingModel) -> PriorBox:
         dphi = approx.central_wavelength_uncertainty * approx.central_wavelength_nm / (
             2.0 * d_nm * np.cos(np.radians(model.grating_angle_deg)))
         return PriorBox(
-            grating_angle_deg=(model.grating_angle_deg, float(np.degrees(dphi))),
-            focal_length_mm=(model.focal_length_mm,
-                             model.focal_length_mm * approx.dispersion_uncertainty),
+            grating_angle_deg=(model.grating_angle_deg,
+                               EFFECTIVE_PRIOR_MARGIN * float(np.degrees(dphi))),
+            focal_length_mm=(model.focal_length_mm, EFFECTIVE_PRIOR_MARGIN
+                             * model.focal_length_mm * approx.dispersion_uncertainty),
             axis_pixel=(model.axis_pixel, pr.axis_pixel_px / bin_d),
             tilt_deg=(model.tilt_deg, 25.0),
             effective=True,

@@ -177,8 +177,26 @@ class GratingModel:
                             self.prism_apex_deg)
 
     def with_parameters(self, **changes) -> GratingModel:
-        """A copy with some attributes changed."""
+        """A copy with some attributes changed.
+
+        Besides the attributes, ``distortion_<k>=value`` sets one Legendre coefficient.
+        """
+        coeffs = None
+        for name in [n for n in changes if n.startswith("distortion_")]:
+            k = int(name.rsplit("_", 1)[1])
+            coeffs = list(self.distortion) if coeffs is None else coeffs
+            coeffs += [0.0] * (k + 1 - len(coeffs))
+            coeffs[k] = float(changes.pop(name))
+        if coeffs is not None:
+            changes["distortion"] = tuple(coeffs)
         return replace(self, **changes)
+
+    def parameter(self, name: str) -> float:
+        """Value of an attribute, or of the distortion coefficient ``distortion_<k>``."""
+        if name.startswith("distortion_"):
+            k = int(name.rsplit("_", 1)[1])
+            return float(self.distortion[k]) if k < len(self.distortion) else 0.0
+        return float(getattr(self, name))
 
     def _distortion_shift(self, x):
         """Distortion shift (pixels); held at its value 1.5 detector lengths out beyond that,
