@@ -127,7 +127,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     x = table["x"].to_numpy(float)
     x_err = table["x_err"].to_numpy(float)
     fwhm = float(peaks.fwhm_typical) if np.isfinite(peaks.fwhm_typical) else 3.0
-    ident = identify_lines(nominal, box, x, in_range.wavelength_nm,
+    ident = identify_lines(nominal, box, x, in_range.wavelength_nm, intensity=in_range.intensity,
                            vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
     fit = None
     if ident.best is None:
@@ -154,13 +154,14 @@ def _line_sigma(lines: LineList) -> np.ndarray:
     return np.where(lines.verified, LINE_UNCERTAINTY_VERIFIED_NM, LINE_UNCERTAINTY_UNVERIFIED_NM)
 
 
-def _converge(model, box, x, x_err, lam, lam_err, assoc, tolerance, unresolved, fwhm,
+def _converge(model, box, x, x_err, lines: LineList, assoc, tolerance, unresolved, fwhm,
               free_grooves):
     """Alternate fit and re-association until the identification is stable.
 
     Returns the last fit, the association it was made on, that association's tolerance and
     the pairs kept out of the fit (blends), or ``(None, ...)`` when too few lines remain.
     """
+    lam, lam_err = lines.wavelength_nm, _line_sigma(lines)
     fit, fitted, fitted_tol = None, assoc, tolerance
     for _ in range(4):
         excluded = assoc.crowded | unresolved[assoc.peak]
@@ -170,7 +171,8 @@ def _converge(model, box, x, x_err, lam, lam_err, assoc, tolerance, unresolved, 
                         lam_err[assoc.line], fit_mask=~excluded, free_grooves=free_grooves)
         model, fitted, fitted_tol = fit.model, assoc, tolerance
         tolerance = float(np.clip(5.0 * fit.rms_px, 0.3, tolerance))
-        new = associate(model, x, lam, tolerance, blend_px=blend_distance_px(fwhm))
+        new = associate(model, x, lam, tolerance, blend_px=blend_distance_px(fwhm),
+                        intensity=lines.intensity)
         if np.array_equal(new.peak, assoc.peak) and np.array_equal(new.line, assoc.line):
             break
         assoc = new
@@ -208,7 +210,7 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
     lam_err = _line_sigma(lines)
     unresolved = (table["flags"].to_numpy(int) & _UNRESOLVED_FLAGS) != 0
     fit, fitted, tolerance, crowded = _converge(
-        ident.best.model, box, x, x_err, lam, lam_err, ident.best.association,
+        ident.best.model, box, x, x_err, lines, ident.best.association,
         ident.best.tolerance_px, unresolved, fwhm, free_grooves)
     if fit is None:
         return _failed(profile, frame, lamps, table, ("too few unblended lines identified",)), None

@@ -89,11 +89,11 @@ def extract_spectrum(frame: Frame, *, rows: tuple[int, int] | None = None, clip:
     Notes
     -----
     Automatic row choice: every row is cleaned of outliers first (see the module docstring);
-    each row's signal is then measured on the columns of the brightest lines (the top 3 % of
-    columns of the spectrum summed over all rows), less the row's median level, and smoothed
-    with a running median over five rows; the rows used are the contiguous run around the
-    brightest one whose smoothed signal is at least ``row_fraction`` of the way from the faintest
-    rows' level to the brightest (a uniform pedestal such as scattered light does not matter).
+    each row's signal is then measured on the columns of the lines (where the spectrum summed
+    over all rows is 5 sigma above its median; at most the top 3 % of columns), less the row's
+    median level, and smoothed with a running median over five rows; the rows used are the
+    contiguous run around the brightest one whose smoothed signal is at least ``row_fraction``
+    of the way from the faintest rows' level to the brightest (a uniform pedestal such as scattered light does not matter).
     If that slit profile is not 5 sigma above its noise, all rows are used.
 
     A rejected pixel (see the module docstring) contributes the robust local value from its
@@ -143,20 +143,24 @@ def _spatial_first(array: np.ndarray, dispersion_axis: int) -> np.ndarray:
 def _illuminated_rows(data: np.ndarray, variance: np.ndarray, fraction: float) -> tuple[int, int]:
     """Contiguous run of rows around the brightest one, judged on the lines' columns.
 
-    The slit profile is measured where the light is: on the columns of the brightest lines of
-    the spectrum summed over all rows (the top 3 % of columns above the median), after removing
-    each row's own median level. A row belongs to the slit when its smoothed profile value is at
-    least ``fraction`` of the way from the faintest row to the brightest. When the profile is
+    The slit profile is measured where the light is: on the columns where the spectrum summed
+    over all rows stands 5 sigma above its median (at most the top 3 % of columns), after
+    removing each row's own median level, smoothed over five rows. A row belongs to the slit
+    when its smoothed profile value is at least ``fraction`` of the way from the faintest rows
+    to the brightest. When the profile is
     not clearly above its noise (5 sigma), all rows are used.
     """
     n_rows, n_cols = data.shape
     if n_rows < 5:
         return 0, n_rows
     collapsed = data.sum(axis=0, dtype=np.float64)
-    n_line = max(int(0.03 * n_cols), 3)
-    line_cols = np.argpartition(collapsed, -n_line)[-n_line:]
+    excess = (collapsed - np.median(collapsed)) / np.sqrt(variance.sum(axis=0, dtype=np.float64) + 1e-12)
+    n_top = max(int(0.03 * n_cols), 3)
+    line_cols = np.flatnonzero(excess > 5.0)
+    if line_cols.size < 3 or line_cols.size > n_top:
+        line_cols = np.argpartition(excess, -n_top)[-n_top:]
     level = np.median(data, axis=1)
-    profile = data[:, line_cols].sum(axis=1, dtype=np.float64) - n_line * level
+    profile = data[:, line_cols].sum(axis=1, dtype=np.float64) - line_cols.size * level
     noise = np.sqrt(variance[:, line_cols].sum(axis=1, dtype=np.float64))
     smooth = median_filter(profile, size=5, mode="reflect")
     peak = int(np.argmax(smooth))

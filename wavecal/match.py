@@ -28,7 +28,7 @@ from .model_setup import PriorBox
 from .optics import GratingModel
 
 __all__ = ["Association", "Hypothesis", "Identification", "associate", "identify_lines",
-           "chance_log10_probability", "blend_distance_px"]
+           "chance_log10_probability", "blend_distance_px", "BLEND_INTENSITY_RATIO"]
 
 #: Coincidences the refinement can buy beyond the searched grid (tilt and offset within their
 #: priors); the searched grating angle and focal length are paid for by the trials factor.
@@ -49,6 +49,10 @@ _EFFECTIVE_STAGE_PARAMETERS = (
     ("grating_angle_deg", "focal_length_mm", "tilt_deg", "axis_pixel", "distortion_3",
      "distortion_4"),
 )
+#: A listed neighbour fainter than this fraction of a line (list intensities) does not make it
+#: a blend: at 1.5 FWHM it moves the centre by well under a tenth of a pixel.
+BLEND_INTENSITY_RATIO = 0.1
+
 #: Prior width (pixels) of a distortion coefficient during the consensus step.
 _DISTORTION_PRIOR_PX = 20.0
 
@@ -168,7 +172,7 @@ def chance_log10_probability(n_matched: int, n_peaks: int, line_density: float,
 
 
 def associate(model: GratingModel, x: np.ndarray, lines_nm: np.ndarray, tolerance_px: float,
-              *, blend_px: float = 0.0) -> Association:
+              *, blend_px: float = 0.0, intensity: np.ndarray | None = None) -> Association:
     """Pair each peak with the nearest predicted line within ``tolerance_px``, one-to-one.
 
     Parameters
@@ -182,7 +186,10 @@ def associate(model: GratingModel, x: np.ndarray, lines_nm: np.ndarray, toleranc
     tolerance_px : float
         Largest accepted |observed − predicted| (pixels).
     blend_px : float
-        Lines closer than this to another listed line are marked ``crowded``.
+        Lines closer than this to another listed line are marked ``crowded`` ...
+    intensity : ndarray, optional
+        ... unless that neighbour's listed intensity is below :data:`BLEND_INTENSITY_RATIO`
+        of the line's own (a faint neighbour hardly moves the centre).
     """
     predicted = model.pixel(lines_nm)
     finite = np.isfinite(predicted)
@@ -212,8 +219,12 @@ def associate(model: GratingModel, x: np.ndarray, lines_nm: np.ndarray, toleranc
     keep[order2[dup]] = False
     peak, slot, off = peak[keep], slot[keep], off[keep]
     gaps = np.diff(pos)
-    nearest_gap = np.minimum(np.r_[np.inf, gaps], np.r_[gaps, np.inf])
-    crowded = nearest_gap[slot] < blend_px
+    weight = np.ones(pos.size) if intensity is None else np.asarray(intensity, float)[idx]
+    left_close = np.r_[False, gaps < blend_px]
+    right_close = np.r_[gaps < blend_px, False]
+    left_strong = np.r_[False, weight[:-1] >= BLEND_INTENSITY_RATIO * weight[1:]]
+    right_strong = np.r_[weight[1:] >= BLEND_INTENSITY_RATIO * weight[:-1], False]
+    crowded = ((left_close & left_strong) | (right_close & right_strong))[slot]
     return Association(peak=peak, line=idx[slot], offset_px=off, crowded=crowded)
 
 
@@ -339,30 +350,19 @@ def _fit_parameters(model: GratingModel, x: np.ndarray, lines: np.ndarray, names
 
 
 def _refine(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray,
-            schedule: tuple[float, ...], blend_px: float) -> tuple[GratingModel, Association]:
+            schedule: tuple[float, ...], blend_px: float,
+            intensity: np.ndarray | None) -> tuple[GratingModel, Association]:
     stages = _EFFECTIVE_STAGE_PARAMETERS if box.effective else _STAGE_PARAMETERS
-    assoc = associate(model, x, lines_nm, schedule[0], blend_px=blend_px)
+    assoc = associate(model, x, lines_nm, schedule[0], blend_px=blend_px, intensity=intensity)
     for stage, tol in enumerate(schedule):
-        assoc = associate(model, x, lines_nm, tol, blend_px=blend_px)
+        assoc = associate(model, x, lines_nm, tol, blend_px=blend_px, intensity=intensity)
         if len(assoc) < 2:
             break
         names = stages[min(stage, len(stages) - 1)]
         names = names[: max(len(assoc) - 2, 2)]  # never more parameters than pairs allow
         model = _fit_parameters(model, x[assoc.peak], lines_nm[assoc.line], names, box)
-    assoc = associate(model, x, lines_nm, schedule[-1], blend_px=blend_px)
+    assoc = associate(model, x, lines_nm, schedule[-1], blend_px=blend_px, intensity=intensity)
     return model, assoc
-
-
-def _central_peaks(x: np.ndarray, n_pixels: int) -> np.ndarray:
-    """Peaks in the middle of the detector, where an unknown curvature of the dispersion
-    (geometry not known) displaces lines least: the central 50 % if it holds six peaks, else the
-    central 75 %, else all."""
-    offset = np.abs(x - 0.5 * (n_pixels - 1)) / (0.5 * n_pixels)
-    for half_width in (0.5, 0.75):
-        inner = np.flatnonzero(offset <= half_width)
-        if inner.size >= 6:
-            return inner
-    return np.arange(x.size)
 
 
 def _is_rival(best: Hypothesis, other: Hypothesis, n_pixels: int) -> bool:
@@ -383,6 +383,7 @@ def _is_rival(best: Hypothesis, other: Hypothesis, n_pixels: int) -> bool:
 
 
 def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray, *,
+                   intensity: np.ndarray | None = None,
                    vote_weight: np.ndarray | None = None, fwhm_px: float = 3.0,
                    max_vote_peaks: int = 80, max_candidates: int = 6,
                    final_tolerance_px: float = 1.0) -> Identification:
@@ -398,6 +399,8 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
         Peak centres, 0-based pixels along the dispersion axis.
     lines_nm : ndarray
         Listed wavelengths (sorted), in the medium of the model.
+    intensity : ndarray, optional
+        Listed intensities, same order; used only to tell harmless faint neighbours from blends.
     vote_weight : ndarray, optional
         Ranking of peaks (e.g. S/N); the strongest ``max_vote_peaks`` vote.
     fwhm_px : float
@@ -410,15 +413,16 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
     Identification
     """
     x = np.asarray(x, dtype=float)
-    lines_nm = np.sort(np.asarray(lines_nm, dtype=float))
+    lines_nm = np.asarray(lines_nm, dtype=float)
+    if np.any(np.diff(lines_nm) < 0):
+        msg = "lines_nm must be sorted by wavelength"
+        raise ValueError(msg)
     n_pixels = model.n_pixels
     notes = []
     if x.size < 3 or lines_nm.size < 3:
         notes.append(f"too few peaks ({x.size}) or listed lines in range ({lines_nm.size}) to search")
         return Identification(None, None, 0, 0.0, tuple(notes))
     voters = np.arange(x.size)
-    if box.effective:
-        voters = _central_peaks(x, n_pixels)
     if vote_weight is not None and voters.size > max_vote_peaks:
         voters = voters[np.sort(np.argsort(np.asarray(vote_weight)[voters])[-max_vote_peaks:])]
     vote_tol = 2.0 if not box.effective else 3.0
@@ -430,7 +434,7 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
     refined: list[Hypothesis] = []
     for _, phi, f, tau in chosen:
         start = model.with_parameters(grating_angle_deg=phi, focal_length_mm=f, tilt_deg=tau)
-        fitted, assoc = _refine(start, box, x, lines_nm, schedule, blend_px)
+        fitted, assoc = _refine(start, box, x, lines_nm, schedule, blend_px, intensity)
         density = _line_density(fitted, lines_nm, n_pixels)
         log10_p = chance_log10_probability(len(assoc), x.size, density, schedule[-1],
                                            n_free=_SEARCH_SLACK_PARAMETERS)
