@@ -17,7 +17,7 @@ import pandas as pd
 
 from . import __version__
 from .extract import Spectrum, extract_spectrum
-from .fit import PHYSICAL_PARAMETERS, FitResult, fit_lines
+from .fit import PHYSICAL_PARAMETERS, FitResult, fit_lines, wavelength_sigma
 from .frames import Frame, read_frame
 from .linelists import LineList, load_line_list
 from .match import (Identification, associate, blend_distance_px, chance_log10_probability,
@@ -230,12 +230,15 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
     priors = box.as_dict()
     shifts = {n: (getattr(model, n) - priors[n][0]) / priors[n][1] for n in PHYSICAL_PARAMETERS}
     runner = ident.runner_up
+    used_x = x[used_peaks]
+    grid = np.linspace(used_x.min(), used_x.max(), 65) if used_x.size else np.zeros(1)
+    sigma_px = wavelength_sigma(model, fit.names, fit.covariance, grid) / np.abs(model.dispersion(grid))
     verdict = judge(VerdictInputs(
         n_used=fit.n_used, used_x=x[used_peaks], n_pixels=model.n_pixels, rms_px=fit.rms_px,
         redchi=fit.redchi, log10_chance=log10_chance, log10_trials=ident.log10_trials,
         ambiguous=ident.ambiguous, runner_up_matches=runner.n_matched if runner else 0,
         best_matches=ident.best.n_matched, prior_shifts=shifts, fit_success=fit.success,
-        effective_geometry=box.effective))
+        max_sigma_px=float(np.nanmax(sigma_px, initial=0.0)), effective_geometry=box.effective))
 
     lines_df = _line_table(table, model, lines, full_list, pairs_peak, pairs_line, fit.used,
                            crowded, unconfirmed, fwhm)
@@ -260,8 +263,8 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
         "log10_chance": log10_chance, "log10_trials": ident.log10_trials,
         "runner_up_matches": runner.n_matched if runner else 0,
         "association_tolerance_px": tolerance, "effective_geometry": box.effective,
+        "max_sigma_px": float(np.nanmax(sigma_px, initial=0.0)),
     }
-    used_x = x[used_peaks]
     solution = Solution(
         status=verdict.status, reasons=verdict.reasons, medium=profile.medium, model=model,
         lines=lines_df, parameters=tuple(parameters),

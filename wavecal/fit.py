@@ -18,7 +18,7 @@ import numpy as np
 from .model_setup import PriorBox
 from .optics import GratingModel
 
-__all__ = ["FitResult", "fit_lines", "PHYSICAL_PARAMETERS"]
+__all__ = ["FitResult", "fit_lines", "wavelength_sigma", "PHYSICAL_PARAMETERS"]
 
 #: Physical parameters fitted, with their GratingModel attribute names.
 PHYSICAL_PARAMETERS = ("grating_angle_deg", "focal_length_mm", "axis_pixel", "tilt_deg")
@@ -250,6 +250,17 @@ def _summarise(result, model, x, lam, sigma_px, keep, degree, n_base) -> FitResu
                      message=str(result.message), leverage=leverage)
 
 
+def wavelength_sigma(model: GratingModel, names, covariance, x) -> np.ndarray:
+    """1-sigma uncertainty (nm) of ``model.wavelength(x)`` propagated from the covariance of the
+    named parameters (linear propagation, J C Jᵀ)."""
+    x = np.asarray(x, dtype=float)
+    covariance = np.asarray(covariance, dtype=float)
+    if not names or not np.all(np.isfinite(covariance)):
+        return np.full(x.shape, np.nan)
+    jac = model.wavelength_derivatives(names, x, 1e-3 * np.sqrt(np.clip(np.diag(covariance), 0, None)))
+    return np.sqrt(np.clip(np.einsum("i...,ij,j...->...", jac, covariance, jac), 0, None))
+
+
 def _leverage(model: GratingModel, names, covar, x, sigma_px, errors) -> np.ndarray:
     """Diagonal of the hat matrix, J C Jᵀ, for every pair (NaN without a covariance).
 
@@ -259,12 +270,6 @@ def _leverage(model: GratingModel, names, covar, x, sigma_px, errors) -> np.ndar
     """
     if covar is None or not np.all(np.isfinite(covar)):
         return np.full(x.size, np.nan)
-    disp = np.abs(model.dispersion(x)) * sigma_px
-    jac = np.empty((x.size, len(names)))
-    for j, (name, err) in enumerate(zip(names, errors)):
-        step = 1e-3 * err if np.isfinite(err) and err > 0 else 1e-6
-        value = model.parameter(name)
-        up = model.with_parameters(**{name: value + step}).wavelength(x)
-        down = model.with_parameters(**{name: value - step}).wavelength(x)
-        jac[:, j] = (up - down) / (2 * step) / disp
+    scale = np.abs(model.dispersion(x)) * sigma_px
+    jac = (model.wavelength_derivatives(names, x, 1e-3 * np.asarray(errors)) / scale).T
     return np.einsum("ij,jk,ik->i", jac, np.asarray(covar), jac)

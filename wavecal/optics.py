@@ -191,6 +191,22 @@ class GratingModel:
             changes["distortion"] = tuple(coeffs)
         return replace(self, **changes)
 
+    def wavelength_derivatives(self, names, x, steps) -> np.ndarray:
+        """Derivatives of :meth:`wavelength` at ``x`` with respect to the named parameters.
+
+        Central differences with the given steps (use a small fraction of each parameter's
+        uncertainty). Returns an array of shape ``(len(names),) + shape(x)``, nm per unit.
+        """
+        x = np.asarray(x, dtype=float)
+        rows = []
+        for name, step in zip(names, steps):
+            step = float(step) if np.isfinite(step) and step > 0 else 1e-9
+            value = self.parameter(name)
+            up = self.with_parameters(**{name: value + step}).wavelength(x)
+            down = self.with_parameters(**{name: value - step}).wavelength(x)
+            rows.append((up - down) / (2 * step))
+        return np.array(rows)
+
     def parameter(self, name: str) -> float:
         """Value of an attribute, or of the distortion coefficient ``distortion_<k>``."""
         if name.startswith("distortion_"):

@@ -20,6 +20,7 @@ import pandas as pd
 
 from ._atomic import atomic_write_text
 from .errors import SolutionFileError
+from .fit import wavelength_sigma
 from .optics import GratingModel
 
 __all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "STATUSES", "SPEED_OF_LIGHT_KMS"]
@@ -133,16 +134,7 @@ class Solution:
         names = list(self.correlation.get("names", ()))
         if self.covariance is None or not names:
             return np.full(np.shape(x), np.nan)
-        x = np.asarray(x, dtype=float)
-        jac = []
-        for name, err in zip(names, np.sqrt(np.diag(self.covariance))):
-            step = 1e-3 * (err if np.isfinite(err) and err > 0 else 1e-6)
-            value = model.parameter(name)
-            jac.append((model.with_parameters(**{name: value + step}).wavelength(x)
-                        - model.with_parameters(**{name: value - step}).wavelength(x)) / (2 * step))
-        jac = np.array(jac)
-        var = np.einsum("i...,ij,j...->...", jac, self.covariance, jac)
-        return np.sqrt(np.clip(var, 0, None))
+        return wavelength_sigma(model, names, self.covariance, x)
 
     # -- reporting -------------------------------------------------------------------------
     @property

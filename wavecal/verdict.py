@@ -11,7 +11,8 @@ import numpy as np
 
 __all__ = ["Verdict", "judge", "VerdictInputs", "MIN_LINES_FAILED", "MIN_LINES_OK",
            "MIN_COVERAGE_OK", "MAX_GAP_OK", "MAX_REDCHI_OK", "MAX_RMS_PX_OK",
-           "SIGNIFICANCE_MARGIN_FAILED", "SIGNIFICANCE_MARGIN_OK", "MAX_PRIOR_SHIFT_OK"]
+           "SIGNIFICANCE_MARGIN_FAILED", "SIGNIFICANCE_MARGIN_OK", "MAX_PRIOR_SHIFT_OK",
+           "MAX_SIGMA_PX_OK"]
 
 #: Fewer lines used than this: no solution.
 MIN_LINES_FAILED = 5
@@ -29,6 +30,9 @@ MAX_RMS_PX_OK = 0.25
 SIGNIFICANCE_MARGIN_FAILED = 2.0
 #: ... and below -(log10 trials + this margin) for an ``ok``.
 SIGNIFICANCE_MARGIN_OK = 6.0
+#: Largest 1-sigma uncertainty (pixels) of the solution within the lines' range for an ``ok``:
+#: three times it stays below a quarter of a pixel.
+MAX_SIGMA_PX_OK = 0.08
 #: Shift of a physical parameter from its nominal value, in prior half-widths, that is suspect.
 MAX_PRIOR_SHIFT_OK = 3.0
 
@@ -49,6 +53,7 @@ class VerdictInputs:
     best_matches: int
     prior_shifts: dict[str, float]
     fit_success: bool
+    max_sigma_px: float = 0.0
     effective_geometry: bool = False
 
 
@@ -101,6 +106,9 @@ def judge(facts: VerdictInputs) -> Verdict:
         doubts.append(f"poor coverage: a gap of {gaps.max():.0%} of the detector has no line")
     if facts.rms_px > MAX_RMS_PX_OK:
         doubts.append(f"high RMS residual ({facts.rms_px:.3f} px)")
+    if facts.max_sigma_px > MAX_SIGMA_PX_OK:
+        doubts.append(f"the solution is uncertain by up to {facts.max_sigma_px:.2f} px (1 sigma) "
+                      "within the range of the lines")
     if facts.redchi > MAX_REDCHI_OK:
         doubts.append(f"residuals {np.sqrt(facts.redchi):.1f}x larger than the centre "
                       "uncertainties explain (reduced chi-square "
