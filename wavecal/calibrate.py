@@ -44,6 +44,10 @@ _MAX_UNCONFIRMED = 4
 #: Smallest window (pixels) assumed for chance coincidences in the significance test.
 _MIN_CHANCE_WINDOW_PX = 0.1
 
+#: A peak more than this many times wider than the typical line is taken as unresolved lines,
+#: however uncertain its width.
+_MAX_WIDTH_RATIO = 2.0
+
 #: Wavelength uncertainty given to line-list values checked against NIST (nm).
 LINE_UNCERTAINTY_VERIFIED_NM = 0.0005
 #: Wavelength uncertainty given to line-list values from memory (nm).
@@ -208,7 +212,8 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
     x_err = table["x_err"].to_numpy(float)
     lam = lines.wavelength_nm
     lam_err = _line_sigma(lines)
-    unresolved = (table["flags"].to_numpy(int) & _UNRESOLVED_FLAGS) != 0
+    unresolved = ((table["flags"].to_numpy(int) & _UNRESOLVED_FLAGS) != 0) | (
+        table["fwhm"].to_numpy(float) > _MAX_WIDTH_RATIO * fwhm)
     fit, fitted, tolerance, crowded = _converge(
         ident.best.model, box, x, x_err, lines, ident.best.association,
         ident.best.tolerance_px, unresolved, fwhm, free_grooves)
