@@ -147,7 +147,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
 def _reachable_range(model: GratingModel, box: PriorBox) -> tuple[float, float]:
     """Wavelengths that can reach the detector anywhere within the prior box."""
     (phi, dphi), (f, df) = box.grating_angle_deg, box.focal_length_mm
-    edges = np.array([-0.02, 1.02]) * (model.n_pixels - 1)
+    margin = 0.02 * model.n_pixels + box.axis_pixel[1]
+    edges = np.array([-margin, model.n_pixels - 1 + margin])
     lams = [model.with_parameters(grating_angle_deg=phi + a, focal_length_mm=f + b).wavelength(edges)
             for a in (-dphi, dphi) for b in (-df, df)]
     lams = np.concatenate(lams)

@@ -291,7 +291,10 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
     focal, deg_per_px = _vote_grid(model, box, n_pixels, tolerance_px)
     tilts = _tilt_grid(model, box, tolerance_px)
     phi0, dphi = box.grating_angle_deg
-    lo, hi = phi0 - 1.02 * dphi, phi0 + 1.02 * dphi
+    # the detector offset is not scanned: it shifts lines like the grating angle does, so the
+    # angle range is widened by the angle equivalent of the offset's prior
+    half = 1.02 * dphi + deg_per_px * box.axis_pixel[1]
+    lo, hi = phi0 - half, phi0 + half
     bin_width = deg_per_px * tolerance_px
     n_bins = max(int(np.ceil((hi - lo) / bin_width)), 1)
     phi_samples = np.linspace(lo, hi, 48)
