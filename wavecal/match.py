@@ -292,8 +292,9 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
     tilts = _tilt_grid(model, box, tolerance_px)
     phi0, dphi = box.grating_angle_deg
     # the detector offset is not scanned: it shifts lines like the grating angle does, so the
-    # angle range is widened by the angle equivalent of the offset's prior
-    half = 1.02 * dphi + deg_per_px * box.axis_pixel[1]
+    # angle range is widened by the angle equivalent of the offset's prior (an effective
+    # geometry's angle range has its own margin already)
+    half = 1.02 * dphi + (0.0 if box.effective else deg_per_px * box.axis_pixel[1])
     lo, hi = phi0 - half, phi0 + half
     bin_width = deg_per_px * tolerance_px
     n_bins = max(int(np.ceil((hi - lo) / bin_width)), 1)
