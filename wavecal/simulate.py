@@ -22,8 +22,6 @@ antiderivative of the standard normal distribution function ``Phi`` (``phi`` its
 """
 from __future__ import annotations
 
-import os
-import tempfile
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -34,6 +32,7 @@ from astropy.io import fits
 from scipy.optimize import brentq
 from scipy.special import ndtr
 
+from ._atomic import atomic_path
 from .linelists import load_line_list
 from .model_setup import nominal_model
 from .optics import GratingModel
@@ -108,8 +107,11 @@ class SimulatedArc:
             hdus.append(fits.ImageHDU(self.data, self.header.copy()))
         return fits.HDUList(hdus)
 
-    def write(self, path: str | Path, *, overwrite: bool = False) -> Path:
+    def write(self, path: str | Path, *, overwrite: bool = False, compress: bool = False) -> Path:
         """Write the frame to a FITS file atomically (temporary file, then rename).
+
+        With ``compress`` the image goes, losslessly RICE tile-compressed, into the first
+        extension (FITS tile compression, as astropy's ``CompImageHDU`` writes it).
 
         Raises
         ------
@@ -120,14 +122,14 @@ class SimulatedArc:
         if path.exists() and not overwrite:
             msg = f"{path}: file exists (pass overwrite=True to replace it)"
             raise FileExistsError(msg)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-        os.close(fd)
-        try:
-            self.to_hdulist().writeto(tmp, overwrite=True)
-            os.replace(tmp, path)
-        except BaseException:
-            Path(tmp).unlink(missing_ok=True)
-            raise
+        hdul = self.to_hdulist()
+        if compress:
+            image = hdul[self.profile.detector.hdu or 0]
+            hdul = fits.HDUList([fits.PrimaryHDU(),
+                                 fits.CompImageHDU(data=image.data, header=image.header,
+                                                   compression_type="RICE_1")])
+        with atomic_path(path) as tmp:
+            hdul.writeto(tmp, overwrite=True)
         return path
 
     def summary(self) -> dict:

@@ -45,11 +45,15 @@ def format_summary(solution: Solution) -> str:
     lo, hi = solution.covered_range_px
     out.append(f"  range     : {lam.min():.3f} – {lam.max():.3f} nm ({solution.medium}), "
                f"{disp:.5f} nm/px at centre")
-    out.append(f"  lines span: pixels {lo:.0f} – {hi:.0f} of 0 – {n - 1} (outside: extrapolated)")
+    out.append(f"  lines span: pixels {lo:.1f} – {hi:.1f} of 0 – {n - 1} (outside: extrapolated)")
     out.append(f"  residuals : RMS {_fmt(stats.get('rms_px'))} px = {_fmt(stats.get('rms_nm'))} nm = "
                f"{_fmt(stats.get('rms_kms'))} km/s;  reduced chi2 {_fmt(stats.get('redchi'), 3)};  "
                f"distortion degree {stats.get('distortion_degree', 0)}")
-    out.append("  parameters (value ± error, shift from nominal in prior widths):")
+    if stats.get("effective_geometry"):
+        out.append("  parameters of the effective model (geometry unknown: they describe the curve, "
+                   "not the hardware):")
+    else:
+        out.append("  parameters (value ± error, shift from nominal in prior widths):")
     for p in solution.parameters:
         label, unit = _PARAMETER_LABELS.get(p["name"], (p["name"].replace("_", " "), ""))
         shift = p.get("shift_sigma")

@@ -1,0 +1,71 @@
+"""The command line: products, summary and the documented exit codes (README, "Exit codes")."""
+import json
+
+import numpy as np
+import pytest
+from astropy.io import fits
+
+from wavecal.cli import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_OK, EXIT_USAGE, main
+from wavecal.profile import load_profile
+from wavecal.simulate import simulate_arc
+
+
+@pytest.fixture(scope="module")
+def arc_file(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("raw")
+    return simulate_arc(load_profile("tho_longslit"), seed=0, lamps=("Hg", "Ar")).write(folder / "arc 01.fits")
+
+
+def test_solve_writes_products_and_exits_ok(arc_file, tmp_path, capsys):
+    before = arc_file.read_bytes()
+    code = main(["solve", str(arc_file), "-p", "tho_longslit", "-o", str(tmp_path)])
+    out = capsys.readouterr().out
+    assert code == EXIT_OK
+    assert "verdict   : OK" in out
+    stem = "arc_01"  # the space in the file name is made safe
+    solution = json.loads((tmp_path / f"{stem}.solution.json").read_text())
+    assert solution["status"] == "ok"
+    assert (tmp_path / f"{stem}.lines.csv").read_text().startswith("x,x_err")
+    png = (tmp_path / f"{stem}.residuals.png").read_bytes()
+    assert png[:8] == b"\x89PNG\r\n\x1a\n"
+    assert arc_file.read_bytes() == before  # the raw frame is never modified
+    assert main(["show", str(tmp_path / f"{stem}.solution.json")]) == EXIT_OK
+
+
+def test_failed_frame_exit_code(tmp_path, capsys):
+    header = fits.Header({"GRTANGLE": 20.0, "ARCLAMPS": "Hg+Ar", "DATE-OBS": "2025-01-01T00:00:00"})
+    path = tmp_path / "dark.fits"
+    fits.PrimaryHDU(np.full((512, 4128), 1000, np.uint16), header=header).writeto(path)
+    assert main(["solve", str(path), "-p", "tho_longslit", "-o", str(tmp_path / "out")]) == EXIT_FAILED
+    assert "FAILED" in capsys.readouterr().out
+
+
+def test_bad_input_names_the_file(tmp_path, capsys):
+    bogus = tmp_path / "not_fits.fits"
+    bogus.write_text("this is not a FITS file")
+    assert main(["solve", str(bogus), "-p", "tho_longslit", "-o", str(tmp_path)]) == EXIT_BAD_INPUT
+    assert "not_fits.fits" in capsys.readouterr().err
+    assert main(["solve", str(bogus), "-p", str(tmp_path / "nope.toml")]) == EXIT_BAD_INPUT
+    assert "nope.toml" in capsys.readouterr().err
+
+
+def test_missing_header_keyword_is_bad_input(tmp_path, capsys):
+    path = tmp_path / "nohdr.fits"
+    fits.PrimaryHDU(np.full((512, 4128), 1000, np.uint16)).writeto(path)
+    assert main(["solve", str(path), "-p", "tho_longslit", "-o", str(tmp_path)]) == EXIT_BAD_INPUT
+    assert "GRTANGLE" in capsys.readouterr().err
+
+
+def test_usage_errors(capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(["solve"])
+    assert exc.value.code == EXIT_USAGE
+    with pytest.raises(SystemExit) as exc:
+        main(["solve", "x.fits", "-p", "tho_longslit", "--lamps", "unobtainium"])
+    assert exc.value.code == EXIT_USAGE
+
+
+def test_demo_runs_on_the_bundled_frames(tmp_path, capsys):
+    assert main(["demo", "-o", str(tmp_path)]) == EXIT_OK
+    assert len(list(tmp_path.glob("*.solution.json"))) == 3
+    assert capsys.readouterr().out.count("verdict   : OK") == 3
