@@ -638,7 +638,8 @@ def _fit_batch(data: _Data, base: np.ndarray, res: _Result, units: np.ndarray, h
         resid_t = y - evaluate(trial, False)[0]
         actual = chi2 - np.sum(w * resid_t * resid_t, axis=1)
         predicted = 2.0 * np.sum(change * grad, axis=1) - np.einsum("up,upq,uq->u", change, normal, change)
-        gain = actual / np.maximum(predicted, 1e-300)
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+            gain = np.where(predicted > 0, actual / np.maximum(predicted, 1e-300), -np.inf)
         better = (actual >= -1e-12 * chi2) & ~done
         theta = np.where(better[:, None], trial, theta)
         # converged: the step moves the parameters by < 1 % of their uncertainty (chi-square
