@@ -314,3 +314,17 @@ def test_error_shape_mismatch(tmp_path):
                      trim={"rows": [0, 30], "columns": [0, 80]})
     with pytest.raises(FrameError, match=r"small\.fits: .* overscan region"):
         read_frame(path, profile)
+
+
+def test_known_bad_pixels_are_masked():
+    from wavecal.profile import load_profile
+
+    profile = load_profile("tho_transmission")  # 2048 x 256, no overscan
+    data = np.full((2048, 256), 600, np.uint16)
+    data[100, 10] = 9000  # a hot pixel the mask knows about
+    mask = np.zeros(data.shape, bool)
+    mask[100, 10] = True
+    frame = frame_from_array(data, profile, bad_pixels=mask)
+    assert frame.bad[100, 10] and frame.bad.sum() == 1
+    with pytest.raises(FrameError, match="bad-pixel mask of shape"):
+        frame_from_array(data, profile, bad_pixels=np.zeros((10, 10), bool))

@@ -4,6 +4,14 @@ The data's path: a raw FITS frame is read into a :class:`~wavecal.frames.Frame`,
 the slit into a :class:`~wavecal.extract.Spectrum`, its emission lines found as a peak table,
 identified against reference line lists with the grating equation as a physical prior, and
 fitted with a physical model of the spectrograph into a :class:`~wavecal.solution.Solution`.
+
+The names most users need are available here::
+
+    import wavecal
+    profile = wavecal.load_profile("tho_longslit")
+    solution = wavecal.calibrate_frame("arc.fits", profile)
+    solution.write("arc.solution.json")
+    same = wavecal.load_solution("arc.solution.json")
 """
 from importlib.metadata import PackageNotFoundError, version
 
@@ -12,4 +20,8 @@ try:
 except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0.0.0+unknown"
 
-__all__ = ["__version__"]
+from .calibrate import calibrate_frame  # noqa: E402
+from .profile import load_profile  # noqa: E402
+from .solution import Solution, load_solution  # noqa: E402
+
+__all__ = ["__version__", "calibrate_frame", "load_profile", "load_solution", "Solution"]

@@ -103,7 +103,7 @@ class Frame:
 
 
 def read_frame(path: str | Path, profile: InstrumentProfile, *, hdu: int | str | None = None,
-               bias: np.ndarray | None = None) -> Frame:
+               bias: np.ndarray | None = None, bad_pixels: np.ndarray | None = None) -> Frame:
     """Read a raw frame from a FITS file.
 
     The file is opened read-only and closed before returning; it is never modified.
@@ -120,6 +120,9 @@ def read_frame(path: str | Path, profile: InstrumentProfile, *, hdu: int | str |
     bias : ndarray, optional
         Master bias in ADU, of the raw (as read) shape or of the trimmed shape. When given it is
         subtracted instead of the overscan level or the profile's constant ``bias_adu``.
+    bad_pixels : ndarray of bool, optional
+        Known bad pixels (True = bad), of the raw or of the trimmed shape; they are masked like
+        non-finite ones (2-D frames).
 
     Returns
     -------
@@ -149,12 +152,12 @@ def read_frame(path: str | Path, profile: InstrumentProfile, *, hdu: int | str |
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         raw, header = _read_image(path, which, caught)
-    return _build_frame(raw, header, profile, path=path, bias=bias)
+    return _build_frame(raw, header, profile, path=path, bias=bias, bad_pixels=bad_pixels)
 
 
 def frame_from_array(data: np.ndarray, profile: InstrumentProfile, *,
                      header: fits.Header | None = None, path: str | Path | None = None,
-                     bias: np.ndarray | None = None) -> Frame:
+                     bias: np.ndarray | None = None, bad_pixels: np.ndarray | None = None) -> Frame:
     """Build a :class:`Frame` from a raw image held in memory.
 
     Parameters
@@ -169,6 +172,8 @@ def frame_from_array(data: np.ndarray, profile: InstrumentProfile, *,
         Name used in error messages and kept as :attr:`Frame.path`.
     bias : ndarray, optional
         Master bias in ADU (see :func:`read_frame`).
+    bad_pixels : ndarray of bool, optional
+        Known bad pixels (see :func:`read_frame`).
 
     Returns
     -------
@@ -179,7 +184,8 @@ def frame_from_array(data: np.ndarray, profile: InstrumentProfile, *,
     if raw.dtype.kind not in "uif":
         msg = f"{path or '<array>'}: image data of type {raw.dtype} is not numeric"
         raise FrameError(msg)
-    return _build_frame(raw, header, profile, path=None if path is None else Path(path), bias=bias)
+    return _build_frame(raw, header, profile, path=None if path is None else Path(path), bias=bias,
+                        bad_pixels=bad_pixels)
 
 
 # ------------------------------------------------------------------------------------------------
@@ -262,7 +268,8 @@ def _is_image(hdu: Any) -> bool:
 # ------------------------------------------------------------------------------------------------
 
 def _build_frame(raw: np.ndarray, header: fits.Header, profile: InstrumentProfile, *,
-                 path: Path | None, bias: np.ndarray | None) -> Frame:
+                 path: Path | None, bias: np.ndarray | None,
+                 bad_pixels: np.ndarray | None = None) -> Frame:
     where = str(path) if path is not None else "<array>"
     while raw.ndim > 2 and raw.shape[0] == 1:
         raw = raw[0]
@@ -284,8 +291,8 @@ def _build_frame(raw: np.ndarray, header: fits.Header, profile: InstrumentProfil
         saturated = finite & (adu >= det.saturation_adu)
         trim, overscan = _regions(adu.shape, det, binning, where)
         if bias is not None:
-            level: np.ndarray | float = _bias_cutout(np.asarray(bias, dtype=np.float32), adu.shape, trim,
-                                                     where)
+            level: np.ndarray | float = _cutout(np.asarray(bias, dtype=np.float32), adu.shape,
+                                                trim, where, "bias frame")
         elif overscan is not None:
             level = _overscan_level(adu, finite, overscan, trim, where)
         else:
@@ -293,6 +300,9 @@ def _build_frame(raw: np.ndarray, header: fits.Header, profile: InstrumentProfil
         cut = (slice(trim[0], trim[1]), slice(trim[2], trim[3]))
         adu = adu[cut] - level
         finite, saturated = finite[cut], saturated[cut]
+        if bad_pixels is not None:
+            finite = finite & ~_cutout(np.asarray(bad_pixels, dtype=bool), raw.shape, trim, where,
+                                       "bad-pixel mask")
         origin = (trim[0], trim[2])
         disp_axis = det.dispersion_axis
     if not finite.any():
@@ -358,14 +368,15 @@ def _regions(shape: tuple[int, ...], det: Any, binning: tuple[int, int], where: 
     return trim, overscan
 
 
-def _bias_cutout(bias: np.ndarray, shape: tuple[int, ...], trim: tuple[int, int, int, int],
-                 where: str) -> np.ndarray:
-    if bias.shape == tuple(shape):
-        return bias[trim[0]:trim[1], trim[2]:trim[3]]
-    if bias.shape == (trim[1] - trim[0], trim[3] - trim[2]):
-        return bias
-    msg = (f"{where}: bias frame of shape {bias.shape} matches neither the raw frame {tuple(shape)} nor "
-           f"its trimmed shape {(trim[1] - trim[0], trim[3] - trim[2])}")
+def _cutout(array: np.ndarray, shape: tuple[int, ...], trim: tuple[int, int, int, int],
+            where: str, what: str) -> np.ndarray:
+    """``array`` (of the raw or of the trimmed shape) cut to the trim region."""
+    if array.shape == tuple(shape):
+        return array[trim[0]:trim[1], trim[2]:trim[3]]
+    if array.shape == (trim[1] - trim[0], trim[3] - trim[2]):
+        return array
+    msg = (f"{where}: {what} of shape {array.shape} matches neither the raw frame {tuple(shape)} "
+           f"nor its trimmed shape {(trim[1] - trim[0], trim[3] - trim[2])}")
     raise FrameError(msg)
 
 
