@@ -69,3 +69,18 @@ def test_calibrating_a_file_never_modifies_it(tmp_path):
     solution = calibrate_frame(path, profile)
     assert solution.frame == str(path)
     assert hashlib.sha256(path.read_bytes()).hexdigest() == before
+
+
+@pytest.mark.parametrize("seed", [0, 6, 10])
+def test_five_listed_lines_are_still_solved_and_called_doubtful(seed):
+    """Xe at a red setting with 45 % of its lines missing leaves five listed lines on the chip:
+    the geometry prior still identifies them, and the verdict says the solution rests on few."""
+    profile = load_profile("tho_longslit")
+    sim = simulate_arc(profile, seed=seed, lamps=("Xe",), grating_angle_deg=33.0, missing_fraction=0.45)
+    lines = sim.lines
+    on_chip = lines["listed"] & ~lines["ghost"] & lines["x_true"].between(5, 4090)
+    assert on_chip.sum() == 5
+    solution = calibrate_frame(frame_from_array(sim.data, profile, header=sim.header), profile)
+    assert solution.status == "suspect"
+    assert any("few lines" in reason for reason in solution.reasons)
+    assert _max_error_px(solution, sim.truth) < 0.25
