@@ -86,3 +86,17 @@ def test_failed_solution_has_no_wavelength_scale(tmp_path):
         solution.wavelength(10.0)
     back = load_solution(solution.write(tmp_path / "failed.json"))
     assert back.status == "failed" and back.model is None
+
+
+def test_vacuum_wavelengths_on_request(solved):
+    """Air solution evaluated in vacuum: the Ciddor (1996) conversion, as in specutils."""
+    solution, _ = solved
+    from specutils.utils.wcs_utils import air_to_vac
+    import astropy.units as u
+
+    x = np.array([100.0, 2000.0, 3900.0])
+    air = solution.wavelength(x)
+    vacuum = solution.wavelength(x, medium="vacuum")
+    reference = air_to_vac(air * u.nm, method="Ciddor1996", scheme="iteration").to_value(u.nm)
+    assert np.allclose(vacuum, reference, atol=5e-8)  # 0.05 pm, the agreement of standard-air formulas
+    assert np.allclose(solution.pixel(vacuum, medium="vacuum"), x, atol=1e-6)

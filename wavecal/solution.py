@@ -20,6 +20,7 @@ import pandas as pd
 
 from ._atomic import atomic_write_text
 from .errors import SolutionFileError
+from .airvac import air_to_vacuum, vacuum_to_air
 from .fit import wavelength_sigma
 from .optics import GratingModel
 
@@ -102,8 +103,8 @@ class Solution:
             raise ValueError(msg)
         return self.model
 
-    def wavelength(self, x, y=None):
-        """Wavelength (nm, in :attr:`medium`) at 0-based pixel ``x`` along the dispersion axis.
+    def wavelength(self, x, y=None, *, medium: str | None = None):
+        """Wavelength (nm) at 0-based pixel ``x`` along the dispersion axis.
 
         Parameters
         ----------
@@ -111,16 +112,33 @@ class Solution:
             0-based pixel along the dispersion axis of the raw frame.
         y : float or array_like, optional
             Position along the slit; the single-row solution does not depend on it.
+        medium : {"air", "vacuum"}, optional
+            Medium of the returned wavelengths; default :attr:`medium`. Converted with
+            :mod:`wavecal.airvac` (Ciddor 1996, standard air) when it differs.
         """
         model = self._require_model()
-        lam = model.wavelength(x)
+        lam = self._to_medium(model.wavelength(x), self.medium, medium or self.medium)
         if y is not None:
             lam = lam + np.zeros(np.broadcast(np.asarray(x), np.asarray(y)).shape)
         return lam
 
-    def pixel(self, wavelength_nm):
-        """0-based pixel along the dispersion axis where ``wavelength_nm`` lands (NaN if none)."""
-        return self._require_model().pixel(wavelength_nm)
+    def pixel(self, wavelength_nm, *, medium: str | None = None):
+        """0-based pixel along the dispersion axis where ``wavelength_nm`` lands (NaN if none).
+
+        ``medium`` says which medium ``wavelength_nm`` is in (default :attr:`medium`).
+        """
+        lam = self._to_medium(np.asarray(wavelength_nm, dtype=float), medium or self.medium,
+                              self.medium)
+        return self._require_model().pixel(lam)
+
+    @staticmethod
+    def _to_medium(wavelength_nm, source: str, target: str):
+        if source == target:
+            return wavelength_nm
+        if {source, target} != {"air", "vacuum"}:
+            msg = f"medium must be 'air' or 'vacuum', got {source!r} and {target!r}"
+            raise ValueError(msg)
+        return air_to_vacuum(wavelength_nm) if target == "vacuum" else vacuum_to_air(wavelength_nm)
 
     def extrapolated(self, x) -> np.ndarray:
         """True where ``x`` lies outside the range covered by identified lines."""
