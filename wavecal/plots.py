@@ -66,7 +66,9 @@ def residual_figure(solution: Solution):
         axes[1].set_xlim(wl[0], wl[-1])
         axes[1].axvspan(wl[0], wl[1], color=PALETTE["extrapolated"], alpha=0.2, lw=0)
         axes[1].axvspan(wl[2], wl[3], color=PALETTE["extrapolated"], alpha=0.2, lw=0)
-    axes[0].legend(fontsize=9, ncol=3, loc="upper right")
+    handles, labels = axes[0].get_legend_handles_labels()
+    fig.legend(handles, labels, loc="outside lower center", ncol=len(labels), fontsize=9,
+               frameon=False)
     return fig
 
 
