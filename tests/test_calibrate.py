@@ -4,7 +4,6 @@ The truth is the simulator's GratingModel; success means the solution agrees wit
 fraction of a pixel over the range covered by the identified lines. Tolerances: 0.1 px maximum
 error on well-exposed frames (the evaluation script measures the distribution over many more).
 """
-import dataclasses
 
 import numpy as np
 import pytest

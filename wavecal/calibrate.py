@@ -129,7 +129,6 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
 
     table = peaks.table
     x = table["x"].to_numpy(float)
-    x_err = table["x_err"].to_numpy(float)
     fwhm = float(peaks.fwhm_typical) if np.isfinite(peaks.fwhm_typical) else 3.0
     ident = identify_lines(nominal, box, x, in_range.wavelength_nm, intensity=in_range.intensity,
                            vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
