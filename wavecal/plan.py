@@ -1,0 +1,912 @@
+"""The setup plan: what a grating setting will put on the detector, worked out before the night.
+
+:func:`plan_setup` takes an instrument profile and either a grating angle or a wanted central
+wavelength (the angle is then solved for) and returns a :class:`SetupPlan`:
+
+1. **Range and dispersion.** Wavelengths at the first pixel, the centre and the last pixel of
+   the detector, the reciprocal linear dispersion (nm/px) there, the angular dispersion and the
+   Littrow angle of the central wavelength, all from the profile's nominal geometry
+   (:func:`wavecal.model_setup.nominal_model`, no distortion).
+2. **Resolving power** R = λ/Δλ for a slit of width ``w``: the slit subtends ``w / f_coll`` at
+   the collimator; the grating magnifies that angle by the anamorphic factor ``cos α / cos β``;
+   Δλ is that angle times dλ/dβ. On the detector this is a slit image of ``w · (cos α / cos β) ·
+   f_cam / f_coll`` (on the camera axis; the flat-detector projection is included elsewhere).
+   Approximated: a geometric slit image, no optical blur, diffraction or aberration, no limit
+   from the illuminated grating width (R ≤ m N is not checked). The 2-pixel sampling limit
+   λ / (2 px · dλ/dx) is reported beside it. Without ``collimator_focal_length_mm`` in the
+   profile (or without a slit width) only the sampling limit is given.
+3. **Order overlap.** A line of wavelength λ' in order m' lands where the working order m has
+   λ = m'λ'/m (same α and β); for every neighbouring order (m−1, m+1, 2m, and any order whose
+   wavelengths on the detector lie in the sensitivity range) the band that lands on the
+   detector is listed. The free spectral range is λ/m at the centre. The order-sorting advice
+   (:class:`FilterAdvice`) follows every order's wavelengths across the detector on a
+   half-pixel grid, from the model (so a grism's prism dispersion is included).
+4. **Blaze** (:func:`scalar_blaze_efficiency`): relative efficiency in the scalar approximation.
+5. **Lamps**: every shipped line list and every useful mix of up to three, scored and ranked
+   (:mod:`wavecal.plan_lamps`), with the ghost lines of other orders.
+
+The sensitivity range is the profile's ``sensitivity_nm``; without one 300–1100 nm is assumed
+(a silicon detector, common practice) and the plan says so.
+"""
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy.optimize import brentq
+
+from ._atomic import atomic_write_text
+from .errors import WavecalError
+from .linelists import available_elements, load_line_list
+from .model_setup import nominal_model, prior_box
+from .optics import GratingModel
+from .plan_lamps import STRONG_INTENSITY, LampScore, rank_lamp_mixes, score_lamps
+from .profile import InstrumentProfile
+
+__all__ = [
+    "DEFAULT_SENSITIVITY_NM",
+    "PlanningError",
+    "SamplePoint",
+    "OrderOverlap",
+    "FilterAdvice",
+    "SetupPlan",
+    "plan_setup",
+    "solve_grating_angle",
+    "angle_search_range",
+    "scalar_blaze_efficiency",
+    "clean_range",
+]
+
+#: Sensitivity range assumed when a profile states none (silicon detector, common practice).
+DEFAULT_SENSITIVITY_NM = (300.0, 1100.0)
+#: No angle of incidence or camera-axis diffraction angle beyond this (degrees) is considered.
+_GRAZING_DEG = 80.0
+#: Step (degrees) of the scan that brackets the grating-angle roots before brentq refines them.
+_ANGLE_STEP_DEG = 0.25
+#: Line width (pixels) assumed for the crowding test when the slit image is unknown (common
+#: practice: spectrographs sample a line with 2-4 pixels).
+_DEFAULT_LINE_WIDTH_PX = 3.0
+#: How many mixes the plan keeps in its ranked recommendation.
+_N_RECOMMENDED = 10
+#: Blaze efficiency below which the plan warns that lines will be faint.
+_FAINT_EFFICIENCY = 0.3
+_SCHEMA = "wavecal-plan/1"
+
+
+class PlanningError(WavecalError, ValueError):
+    """A setting cannot be planned: unreachable wavelength, no light on the detector, bad option."""
+
+
+@dataclass(frozen=True)
+class SamplePoint:
+    """Optical quantities at one pixel of the detector.
+
+    Attributes
+    ----------
+    label : str
+        ``"first pixel"``, ``"centre"`` or ``"last pixel"``.
+    pixel : float
+        0-based (binned) pixel along the dispersion axis.
+    wavelength_nm : float
+        Wavelength of the working order there (profile medium).
+    dispersion_nm_per_px : float
+        Reciprocal linear dispersion |dλ/dx|.
+    beta_deg : float
+        Diffraction angle received there.
+    anamorphic_magnification : float
+        cos α / cos β.
+    slit_image_px, resolution_nm, resolving_power : float or None
+        Geometric slit image width, its width in wavelength Δλ and R = λ/Δλ (None without a
+        slit width or a collimator focal length).
+    sampling_resolving_power : float
+        λ / (2 px · dλ/dx): the resolving power two pixels allow.
+    blaze_efficiency : float or None
+        Relative blaze efficiency (None without a blaze wavelength).
+    """
+
+    label: str
+    pixel: float
+    wavelength_nm: float
+    dispersion_nm_per_px: float
+    beta_deg: float
+    anamorphic_magnification: float
+    slit_image_px: float | None
+    resolution_nm: float | None
+    resolving_power: float | None
+    sampling_resolving_power: float
+    blaze_efficiency: float | None
+
+    def summary(self) -> dict:
+        """JSON-safe dict of the attributes."""
+        return {k: _safe(getattr(self, k)) for k in self.__dataclass_fields__}
+
+
+@dataclass(frozen=True)
+class OrderOverlap:
+    """The wavelengths of another order that land on the detector.
+
+    Attributes
+    ----------
+    order : int
+        The other order m'.
+    wavelength_range_nm : tuple of float
+        Its wavelengths (min, max) that fall on the detector.
+    sensitive_range_nm : tuple of float or None
+        The part of that band inside the sensitivity range (None: none of it).
+    """
+
+    order: int
+    wavelength_range_nm: tuple[float, float]
+    sensitive_range_nm: tuple[float, float] | None
+
+    def summary(self) -> dict:
+        """JSON-safe dict of the attributes."""
+        return {"order": self.order,
+                "wavelength_range_nm": [_safe(v) for v in self.wavelength_range_nm],
+                "sensitive_range_nm": None if self.sensitive_range_nm is None
+                else [_safe(v) for v in self.sensitive_range_nm]}
+
+
+@dataclass(frozen=True)
+class FilterAdvice:
+    """Order-sorting filters for the setting.
+
+    Attributes
+    ----------
+    long_pass_needed : bool
+        Light of higher orders (shorter wavelengths) within the sensitivity range reaches the
+        part of the detector where the working order is detectable.
+    cut_on_window_nm : tuple of float or None
+        A long-pass cut-on anywhere strictly above the first and at or below the second value
+        blocks the higher orders and passes the whole detectable working-order band; None when no
+        long-pass is needed or none can (the detector spans more than a free spectral range).
+    cut_on_nm : float or None
+        Suggested cut-on (the middle of the window, or, when no window exists, the lowest cut-on
+        that keeps the red end of the detector clean).
+    short_pass_needed, cut_off_window_nm, cut_off_nm
+        The same for lower orders (longer wavelengths), which only exist for orders m ≥ 2.
+    clean_range_nm : tuple of float or None
+        Working-order wavelengths free of other orders with the suggested filter(s) (None if
+        none).
+    clears_detector : bool
+        The clean range is the whole detectable working-order band.
+    """
+
+    long_pass_needed: bool
+    cut_on_window_nm: tuple[float, float] | None
+    cut_on_nm: float | None
+    short_pass_needed: bool
+    cut_off_window_nm: tuple[float, float] | None
+    cut_off_nm: float | None
+    clean_range_nm: tuple[float, float] | None
+    clears_detector: bool
+
+    def summary(self) -> dict:
+        """JSON-safe dict of the attributes."""
+        out = {}
+        for key in self.__dataclass_fields__:
+            value = getattr(self, key)
+            out[key] = [_safe(v) for v in value] if isinstance(value, tuple) else _safe(value)
+        return out
+
+
+@dataclass(frozen=True, eq=False)
+class SetupPlan:
+    """Everything the planner worked out for one setting (see the module docstring).
+
+    Attributes
+    ----------
+    profile_name : str
+        The instrument.
+    profile_source : str or None
+        The profile file.
+    mount : str
+        Grating mount of the profile.
+    medium : str
+        Medium of all wavelengths (the profile's).
+    grooves_per_mm : float
+        Groove density (of the effective grating for a profile of unknown geometry).
+    order : int
+        Working order m.
+    grating_angle_deg : float or None
+        Physical grating angle (None for a profile of unknown geometry).
+    header_angle : float or None
+        The same as the header (dial) value: ``(angle - zero point) / scale``.
+    solved_for_nm : float or None
+        The central wavelength the angle was solved for (None if the angle was given).
+    alpha_deg, beta_centre_deg : float
+        Angle of incidence and diffraction angle at the detector centre.
+    littrow_angle_deg : float or None
+        Littrow angle of the central wavelength in the working order, asin(mλ/2d) (None for a
+        grism).
+    angular_dispersion_rad_per_nm : float
+        dβ/dλ at the centre.
+    binning : tuple of int
+        ``(along axis 0, along axis 1)``.
+    n_pixels : int
+        Detector length along the dispersion axis (binned pixels).
+    wavelength_increases : bool
+        Wavelength grows with pixel index.
+    points : tuple of SamplePoint
+        First pixel, centre, last pixel.
+    slit_width_um, collimator_focal_length_mm : float or None
+        Inputs of the resolving power.
+    free_spectral_range_nm, free_spectral_range_px : float
+        λ/m at the centre, and that in pixels of the central dispersion.
+    sensitivity_nm : tuple of float
+        Sensitivity range used; ``sensitivity_assumed`` tells whether it was assumed.
+    sensitivity_assumed : bool
+        True when the profile gave none and :data:`DEFAULT_SENSITIVITY_NM` was used.
+    overlaps : tuple of OrderOverlap
+        Neighbouring orders landing on the detector.
+    filters : FilterAdvice
+        Order-sorting advice.
+    blaze_nm, blaze_angle_deg : float or None
+        Blaze wavelength (profile, working order) and the Littrow blaze angle.
+    angle_prior_shift_px : float
+        How far the central wavelength moves (pixels) if the grating angle is off by the
+        profile's prior half-width: the uncertainty of the planned positions.
+    line_width_px : float
+        Line width used for the crowding test of the lamp scores.
+    lines : pandas.DataFrame
+        Listed lines of every shipped element landing on the detector in any order, sorted by
+        ``x``: ``element``, ``wavelength_nm``, ``order``, ``x`` (0-based pixel),
+        ``apparent_wavelength_nm`` (working-order wavelength at ``x``), ``intensity``, ``weak``,
+        ``blend``, ``verified``, ``strong``, ``sensitive`` (own wavelength within the
+        sensitivity range), ``ghost`` (order other than the working one), ``filtered`` (blocked
+        by the suggested filter(s)), ``efficiency`` (blaze, NaN when unknown).
+    lamps : tuple of LampScore
+        Each shipped element on its own, alphabetically.
+    recommended : tuple of LampScore
+        The best lamps and mixes, best first.
+    profile_lamps : LampScore or None
+        The profile's default lamps scored the same way (None if it names none).
+    notes : tuple of str
+        What is approximated or assumed.
+    warnings : tuple of str
+        Problems with the setting worth a look.
+    model : GratingModel
+        The nominal model of the setting.
+    """
+
+    profile_name: str
+    profile_source: str | None
+    mount: str
+    medium: str
+    grooves_per_mm: float
+    order: int
+    grating_angle_deg: float | None
+    header_angle: float | None
+    solved_for_nm: float | None
+    alpha_deg: float
+    beta_centre_deg: float
+    littrow_angle_deg: float | None
+    angular_dispersion_rad_per_nm: float
+    binning: tuple[int, int]
+    n_pixels: int
+    wavelength_increases: bool
+    points: tuple[SamplePoint, ...]
+    slit_width_um: float | None
+    collimator_focal_length_mm: float | None
+    free_spectral_range_nm: float
+    free_spectral_range_px: float
+    sensitivity_nm: tuple[float, float]
+    sensitivity_assumed: bool
+    overlaps: tuple[OrderOverlap, ...]
+    filters: FilterAdvice
+    blaze_nm: float | None
+    blaze_angle_deg: float | None
+    angle_prior_shift_px: float
+    line_width_px: float
+    lines: pd.DataFrame
+    lamps: tuple[LampScore, ...]
+    recommended: tuple[LampScore, ...]
+    profile_lamps: LampScore | None
+    notes: tuple[str, ...]
+    warnings: tuple[str, ...]
+    model: GratingModel
+
+    @property
+    def wavelength_range_nm(self) -> tuple[float, float]:
+        """(shortest, longest) working-order wavelength on the detector (pixel centres)."""
+        ends = sorted((self.points[0].wavelength_nm, self.points[-1].wavelength_nm))
+        return float(ends[0]), float(ends[1])
+
+    @property
+    def central_wavelength_nm(self) -> float:
+        """Working-order wavelength at the detector centre."""
+        return self.points[1].wavelength_nm
+
+    def pixel(self, wavelength_nm, *, order: int | None = None):
+        """Planned 0-based pixel of ``wavelength_nm`` (in ``order``, default the working one)."""
+        model = self.model if order is None else self.model.with_parameters(order=int(order))
+        return model.pixel(wavelength_nm)
+
+    def ghosts(self, lamps: tuple[str, ...] | None = None) -> pd.DataFrame:
+        """Lines of other orders on the detector (all shipped elements, or only ``lamps``)."""
+        table = self.lines[self.lines["ghost"]]
+        return table if lamps is None else table[table["element"].isin(tuple(lamps))]
+
+    def lines_for(self, lamps: tuple[str, ...]) -> pd.DataFrame:
+        """Working-order lines of ``lamps`` on the detector."""
+        table = self.lines[~self.lines["ghost"]]
+        return table[table["element"].isin(tuple(lamps))]
+
+    def summary(self) -> dict:
+        """Everything as a JSON-safe dict (NaN becomes None)."""
+        model = self.model
+        return {
+            "schema": _SCHEMA,
+            "instrument": self.profile_name,
+            "profile": self.profile_source,
+            "mount": self.mount,
+            "medium": self.medium,
+            "grooves_per_mm": _safe(self.grooves_per_mm),
+            "order": self.order,
+            "grating_angle_deg": _safe(self.grating_angle_deg),
+            "header_angle": _safe(self.header_angle),
+            "solved_for_nm": _safe(self.solved_for_nm),
+            "alpha_deg": _safe(self.alpha_deg),
+            "beta_centre_deg": _safe(self.beta_centre_deg),
+            "littrow_angle_deg": _safe(self.littrow_angle_deg),
+            "angular_dispersion_rad_per_nm": _safe(self.angular_dispersion_rad_per_nm),
+            "binning": list(self.binning),
+            "n_pixels": self.n_pixels,
+            "wavelength_increases": self.wavelength_increases,
+            "wavelength_range_nm": [_safe(v) for v in self.wavelength_range_nm],
+            "points": [p.summary() for p in self.points],
+            "slit_width_um": _safe(self.slit_width_um),
+            "collimator_focal_length_mm": _safe(self.collimator_focal_length_mm),
+            "free_spectral_range_nm": _safe(self.free_spectral_range_nm),
+            "free_spectral_range_px": _safe(self.free_spectral_range_px),
+            "sensitivity_nm": [_safe(v) for v in self.sensitivity_nm],
+            "sensitivity_assumed": self.sensitivity_assumed,
+            "overlaps": [o.summary() for o in self.overlaps],
+            "filters": self.filters.summary(),
+            "blaze_nm": _safe(self.blaze_nm),
+            "blaze_angle_deg": _safe(self.blaze_angle_deg),
+            "angle_prior_shift_px": _safe(self.angle_prior_shift_px),
+            "line_width_px": _safe(self.line_width_px),
+            "lamps": [s.summary() for s in self.lamps],
+            "recommended": [s.summary() for s in self.recommended],
+            "profile_lamps": None if self.profile_lamps is None else self.profile_lamps.summary(),
+            "lines": [{k: _safe(v) for k, v in row.items()}
+                      for row in self.lines.to_dict(orient="records")],
+            "notes": list(self.notes),
+            "warnings": list(self.warnings),
+            "model": {"focal_length_mm": _safe(model.focal_length_mm),
+                      "pixel_mm": _safe(model.pixel_mm), "axis_pixel": _safe(model.axis_pixel),
+                      "tilt_deg": _safe(model.tilt_deg), "deviation_deg": _safe(model.deviation_deg),
+                      "direction": model.direction},
+        }
+
+    def to_json(self, path: str | Path) -> Path:
+        """Write :meth:`summary` as JSON, atomically; returns the path."""
+        path = Path(path)
+        atomic_write_text(path, json.dumps(self.summary(), indent=2, allow_nan=False) + "\n")
+        return path
+
+    def format_table(self) -> str:
+        """The plan as a plain-text table for the terminal."""
+        from .plan_text import format_plan
+
+        return format_plan(self)
+
+
+def _safe(value):
+    """JSON-safe scalar: numpy types to Python, NaN/inf to None."""
+    if value is None or isinstance(value, (bool, str)):
+        return value
+    if isinstance(value, (np.bool_,)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(value) else None
+    return value
+
+
+# -- the grating angle ----------------------------------------------------------------------------
+def angle_search_range(profile: InstrumentProfile) -> tuple[float, float]:
+    """Grating angles (degrees) that keep α and the camera-axis β within 80° of the normal.
+
+    Reflection: α = φ + D/2, β_c = φ − D/2; transmission: α = φ, β_c = D − φ; grism: α = A + φ
+    inside the glass (β_c does not depend on φ). See :mod:`wavecal.optics`.
+    """
+    g = profile.grating
+    lim = _GRAZING_DEG
+    if g.mount == "reflection":
+        half = 0.5 * abs(g.deviation_deg)
+        return -lim + half, lim - half
+    if g.mount == "transmission":
+        return max(-lim, g.deviation_deg - lim), min(lim, g.deviation_deg + lim)
+    if g.mount == "grism":
+        return -lim - g.prism_apex_deg, lim - g.prism_apex_deg
+    msg = f"{_where(profile)}: mount {g.mount!r} has no grating angle to solve for"
+    raise PlanningError(msg)
+
+
+def solve_grating_angle(profile: InstrumentProfile, central_wavelength_nm: float, *,
+                        binning: tuple[int, int] = (1, 1)) -> float:
+    """Physical grating angle (degrees) that puts ``central_wavelength_nm`` at the detector centre.
+
+    The centre wavelength is scanned over :func:`angle_search_range` in steps of 0.25°; each
+    bracketed root is refined with :func:`scipy.optimize.brentq`. Of the roots that light the
+    whole detector the one nearest 0° is returned (a transmission grating has two, symmetric
+    about its minimum-deviation angle).
+
+    Raises
+    ------
+    PlanningError
+        When no angle in the range reaches the wavelength; the message gives the reachable range.
+    """
+    target = float(central_wavelength_nm)
+    if not (math.isfinite(target) and target > 0):
+        msg = f"{_where(profile)}: central wavelength must be a positive number of nm, got {central_wavelength_nm!r}"
+        raise PlanningError(msg)
+    template = nominal_model(profile, 0.0, binning)
+    centre = 0.5 * (template.n_pixels - 1)
+    ends = np.array([0.0, template.n_pixels - 1.0])
+    lo, hi = angle_search_range(profile)
+    grid = np.linspace(lo, hi, math.ceil((hi - lo) / _ANGLE_STEP_DEG) + 1)
+
+    def offset(phi: float) -> float:
+        return float(template.with_parameters(grating_angle_deg=phi).wavelength(centre)) - target
+
+    values = np.array([offset(p) for p in grid])
+    roots = [float(p) for p, v in zip(grid, values) if v == 0.0]
+    for i in np.flatnonzero(np.sign(values[:-1]) * np.sign(values[1:]) < 0):
+        roots.append(float(brentq(offset, grid[i], grid[i + 1], xtol=1e-10)))
+    lit = [r for r in roots
+           if np.all(np.isfinite(template.with_parameters(grating_angle_deg=r).wavelength(ends)))]
+    if not lit:
+        reach = values + target
+        reach = reach[np.isfinite(reach) & (reach > 0)]
+        span = (f"{reach.min():.1f}–{reach.max():.1f} nm" if len(reach) else "no positive wavelength")
+        msg = (f"{_where(profile)}: central wavelength {target:g} nm is out of reach in order "
+               f"{profile.grating.order}: grating angles {lo:.1f}° to {hi:.1f}° put {span} at the "
+               f"detector centre")
+        raise PlanningError(msg)
+    return min(lit, key=abs)
+
+
+# -- blaze ---------------------------------------------------------------------------------------
+def scalar_blaze_efficiency(model: GratingModel, wavelength_nm, order: int, *, blaze_nm: float,
+                            blaze_order: int) -> np.ndarray:
+    """Relative efficiency (1 at the blaze peak) of a blazed grating, scalar approximation.
+
+    Reflection gratings: the Fraunhofer pattern of one groove facet (common practice), ::
+
+        efficiency = sinc²(γ),  γ = π (d cos θ_B / λ) [sin(α − θ_B) + sin(β − θ_B)]
+
+    with facet width ``d cos θ_B``, α from the model, β from the grating equation for λ in
+    ``order``, and the blaze angle θ_B from the Littrow blaze condition ``m_B λ_B = 2 d sin θ_B``
+    (``m_B = blaze_order``). γ = 0 (efficiency 1) where the facet reflects specularly into β;
+    in Littrow that is λ_B. Transmission gratings and grisms: the small-angle form of the same
+    function, γ = π (m − m_B λ_B / λ), whose peak is at λ_B in the blaze order.
+
+    The scalar theory ignores polarisation, groove shadowing and resonance anomalies; for groove
+    spacings below about two wavelengths the real efficiency can differ a lot. Returns NaN where
+    λ cannot be diffracted into ``order``.
+    """
+    lam = np.asarray(wavelength_nm, dtype=float)
+    g = model.grooves_per_mm * 1e-6
+    alpha, _ = model.angles
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if model.mount == "reflection":
+            sin_tb = blaze_order * g * blaze_nm / 2.0
+            if not 0 < sin_tb < 1:
+                msg = f"blaze wavelength {blaze_nm} nm in order {blaze_order} gives no blaze angle"
+                raise PlanningError(msg)
+            theta = np.arcsin(sin_tb)
+            sin_beta = order * g * lam - np.sin(np.radians(alpha))
+            beta = np.arcsin(np.where(np.abs(sin_beta) <= 1, sin_beta, np.nan))
+            gamma = (np.pi * np.cos(theta) / (g * lam)
+                     * (np.sin(np.radians(alpha) - theta) + np.sin(beta - theta)))
+        else:
+            valid = np.isfinite(model.with_parameters(order=int(order)).pixel(lam))
+            gamma = np.where(valid, np.pi * (order - blaze_order * blaze_nm / lam), np.nan)
+        return np.sinc(gamma / np.pi) ** 2
+
+
+# -- filters -------------------------------------------------------------------------------------
+def _detector_grid(model: GratingModel) -> np.ndarray:
+    """Half-pixel grid over the detector, ends included."""
+    return np.linspace(0.0, model.n_pixels - 1.0, 2 * model.n_pixels - 1)
+
+
+def _other_orders(model: GratingModel, sensitivity_nm: tuple[float, float]) -> list[int]:
+    """Orders other than the working one whose light on the detector can reach the sensitivity range."""
+    m = model.order
+    top = float(np.max(model.wavelength(np.array([0.0, model.n_pixels - 1.0]))))
+    return [k for k in range(1, max(2 * m, math.ceil(m * top / sensitivity_nm[0])) + 1) if k != m]
+
+
+def clean_range(model: GratingModel, sensitivity_nm: tuple[float, float], *,
+                cut_on_nm: float | None = None, cut_off_nm: float | None = None,
+                ) -> tuple[float, float] | None:
+    """Working-order wavelengths on the detector that no other order overlaps.
+
+    Light of any order is detected when its wavelength lies in the sensitivity range and passes
+    the filters (a long-pass with ``cut_on_nm``, a short-pass with ``cut_off_nm``). On a
+    half-pixel grid over the detector, a point is clean when its working-order light is detected
+    and no other order's is (each order's wavelength there from the model, i.e. m'λ' = mλ for
+    reflection and transmission gratings, with the prism's dispersion for a grism). Returns the
+    working-order wavelengths (min, max) of the longest clean run, or None.
+    """
+    x = _detector_grid(model)
+    lam = model.wavelength(x)
+    lo = max(sensitivity_nm[0], -np.inf if cut_on_nm is None else cut_on_nm)
+    hi = min(sensitivity_nm[1], np.inf if cut_off_nm is None else cut_off_nm)
+    clean = (lam >= lo) & (lam <= hi)
+    for k in _other_orders(model, sensitivity_nm):
+        other = model.with_parameters(order=k).wavelength(x)
+        clean &= ~((other >= lo) & (other <= hi))
+    if not clean.any():
+        return None
+    edges = np.flatnonzero(np.diff(np.concatenate([[0], clean.astype(int), [0]])))
+    starts, stops = edges[::2], edges[1::2]
+    best = int(np.argmax(stops - starts))
+    run = lam[starts[best]:stops[best]]
+    return float(run.min()), float(run.max())
+
+
+def _inside(value: float, window: tuple[float, float]) -> float:
+    """``value`` rounded to a whole nm if that stays strictly inside ``window``."""
+    rounded = float(round(value))
+    return rounded if window[0] < rounded < window[1] else float(value)
+
+
+def _offending(model: GratingModel, x: np.ndarray, orders: list[int], sens) -> np.ndarray:
+    """Detectable wavelengths of ``orders`` landing on the grid points ``x``."""
+    values = [model.with_parameters(order=k).wavelength(x) for k in orders]
+    values = np.concatenate(values) if values else np.array([])
+    return values[(values >= sens[0]) & (values <= sens[1])]
+
+
+def _filter_advice(model: GratingModel, sens: tuple[float, float]) -> FilterAdvice:
+    m = model.order
+    x = _detector_grid(model)
+    lam = model.wavelength(x)
+    wanted = (lam >= sens[0]) & (lam <= sens[1])
+    if not wanted.any():  # nothing detectable in the working order: nothing to sort
+        return FilterAdvice(long_pass_needed=False, cut_on_window_nm=None, cut_on_nm=None,
+                            short_pass_needed=False, cut_off_window_nm=None, cut_off_nm=None,
+                            clean_range_nm=None, clears_detector=False)
+    w_lo, w_hi = float(lam[wanted].min()), float(lam[wanted].max())
+    others = _other_orders(model, sens)
+    higher = _offending(model, x[wanted], [k for k in others if k > m], sens)
+    cut_on = window_on = None
+    if len(higher):
+        top = float(higher.max())  # the longest detectable higher-order wavelength to block
+        if top < w_lo:
+            window_on = (top, w_lo)
+            cut_on = _inside(0.5 * (top + w_lo), window_on)
+        else:  # no window: keep the red end clean
+            cut_on = float(math.floor(top) + 1)
+    lower = _offending(model, x[wanted], [k for k in others if k < m], sens)
+    cut_off = window_off = None
+    if len(lower):
+        bottom = float(lower.min())  # the shortest detectable lower-order wavelength to block
+        if bottom > w_hi:
+            window_off = (w_hi, bottom)
+            cut_off = _inside(0.5 * (bottom + w_hi), window_off)
+        else:  # no window: keep the blue end clean
+            cut_off = float(math.ceil(bottom) - 1)
+    clean = clean_range(model, sens, cut_on_nm=cut_on, cut_off_nm=cut_off)
+    return FilterAdvice(long_pass_needed=bool(len(higher)), cut_on_window_nm=window_on, cut_on_nm=cut_on,
+                        short_pass_needed=bool(len(lower)), cut_off_window_nm=window_off,
+                        cut_off_nm=cut_off, clean_range_nm=clean,
+                        clears_detector=clean == (w_lo, w_hi))
+
+
+# -- the plan --------------------------------------------------------------------------------------
+def _where(profile: InstrumentProfile) -> str:
+    return str(profile.source) if profile.source is not None else f"profile {profile.name!r}"
+
+
+def _check_inputs(profile, grating_angle_deg, central_wavelength_nm, slit_width_um, binning):
+    where = _where(profile)
+    if profile.grating.mount == "approximate":
+        if grating_angle_deg is not None or central_wavelength_nm is not None:
+            msg = (f"{where}: geometry unknown (mount 'approximate'): the setting is the one its "
+                   f"[approximate] table states; give neither a grating angle nor a central wavelength")
+            raise PlanningError(msg)
+    elif (grating_angle_deg is None) == (central_wavelength_nm is None):
+        msg = f"{where}: give exactly one of grating_angle_deg and central_wavelength_nm"
+        raise PlanningError(msg)
+    if grating_angle_deg is not None and not math.isfinite(float(grating_angle_deg)):
+        msg = f"{where}: grating angle must be finite, got {grating_angle_deg!r}"
+        raise PlanningError(msg)
+    try:
+        slit = None if slit_width_um is None else float(slit_width_um)
+    except (TypeError, ValueError):
+        slit = math.nan
+    if slit is not None and not (math.isfinite(slit) and slit > 0):
+        msg = f"{where}: slit width must be a positive number of micrometres, got {slit_width_um!r}"
+        raise PlanningError(msg)
+    try:
+        bins = tuple(int(b) for b in binning)
+    except (TypeError, ValueError):
+        bins = ()
+    if len(bins) != 2 or min(bins) < 1:
+        msg = f"{where}: binning must be two positive integers (along axis 0, axis 1), got {binning!r}"
+        raise PlanningError(msg)
+    return bins, slit
+
+
+def plan_setup(profile: InstrumentProfile, *, grating_angle_deg: float | None = None,
+               central_wavelength_nm: float | None = None, slit_width_um: float | None = None,
+               binning: tuple[int, int] = (1, 1)) -> SetupPlan:
+    """Plan an observing setting (see the module docstring for what is computed and how).
+
+    Parameters
+    ----------
+    profile : InstrumentProfile
+        The instrument.
+    grating_angle_deg : float, optional
+        Physical grating angle (degrees), as ``wavecal solve --grating-angle`` takes it.
+    central_wavelength_nm : float, optional
+        Wavelength (profile medium) wanted at the detector centre; the angle is solved for with
+        :func:`solve_grating_angle`. Give exactly one of the two (neither for a profile of
+        unknown geometry, whose setting is fixed by its ``[approximate]`` table).
+    slit_width_um : float, optional
+        Slit width in micrometres, for the slit-limited resolving power.
+    binning : tuple of int
+        Binning ``(along axis 0, along axis 1)``.
+
+    Returns
+    -------
+    SetupPlan
+
+    Raises
+    ------
+    PlanningError
+        For invalid options, an unreachable central wavelength, or a setting that diffracts no
+        light of the working order onto part of the detector.
+    """
+    bins, slit_width_um = _check_inputs(profile, grating_angle_deg, central_wavelength_nm,
+                                        slit_width_um, binning)
+    where = _where(profile)
+    g = profile.grating
+    approximate = g.mount == "approximate"
+    if central_wavelength_nm is not None:
+        angle = solve_grating_angle(profile, central_wavelength_nm, binning=bins)
+    else:
+        angle = None if approximate else float(grating_angle_deg)
+    model = nominal_model(profile, 0.0 if angle is None else angle, bins)
+    n = model.n_pixels
+    xs = np.array([0.0, 0.5 * (n - 1), n - 1.0])
+    lam = model.wavelength(xs)
+    if not np.all(np.isfinite(lam) & (lam > 0)):
+        msg = (f"{where}: grating angle {angle}° diffracts no order-{model.order} light onto part of "
+               f"the detector (wavelengths at first pixel, centre, last pixel: "
+               f"{', '.join(f'{v:.1f}' for v in lam)} nm)")
+        raise PlanningError(msg)
+    sens = profile.sensitivity_nm or DEFAULT_SENSITIVITY_NM
+    assumed = profile.sensitivity_nm is None
+    blaze_nm = None if approximate else g.blaze_nm
+    blaze_order = g.order
+    if blaze_nm is not None and g.mount == "reflection" and \
+            not 0 < blaze_order * g.grooves_per_mm * 1e-6 * blaze_nm / 2 < 1:
+        msg = f"{where}: blaze_nm {blaze_nm} in order {blaze_order} gives no Littrow blaze angle"
+        raise PlanningError(msg)
+
+    def efficiency(wl, order):
+        if blaze_nm is None:
+            return np.full(np.shape(wl), np.nan)
+        return scalar_blaze_efficiency(model, wl, order, blaze_nm=blaze_nm, blaze_order=blaze_order)
+
+    f_coll = None if approximate else profile.camera.collimator_focal_length_mm
+    points = _sample_points(model, xs, slit_width_um, f_coll, efficiency)
+    band = (float(lam.min()), float(lam.max()))
+    overlaps = _overlaps(model, sens)
+    filters = _filter_advice(model, sens)
+    width = (max(points[1].slit_image_px, 2.0) if points[1].slit_image_px is not None
+             else _DEFAULT_LINE_WIDTH_PX)
+    lines = _line_table(model, profile.medium, sens, efficiency, filters)
+    elements = available_elements()
+    lamps = tuple(score_lamps(lines, (e,), order=model.order, n_pixels=n, line_width_px=width)
+                  for e in elements)
+    ranked = rank_lamp_mixes(lines, elements, order=model.order, n_pixels=n, line_width_px=width)
+    usual = tuple(e for e in profile.lamps if e in elements)
+    usual_score = (score_lamps(lines, usual, order=model.order, n_pixels=n, line_width_px=width)
+                   if usual else None)
+    alpha, _ = model.angles
+    beta_c = float(model.beta(xs[1]))
+    dbeta = abs(float(np.radians(model.beta(xs[1] + 0.5) - model.beta(xs[1] - 0.5))))
+    ang_disp = dbeta / points[1].dispersion_nm_per_px
+    sin_littrow = model.order * model.grooves_per_mm * 1e-6 * lam[1] / 2.0
+    shift = _prior_shift(profile, model, lam[1])
+    blaze_angle = None
+    if blaze_nm is not None and g.mount == "reflection":
+        blaze_angle = float(np.degrees(np.arcsin(blaze_order * g.grooves_per_mm * 1e-6 * blaze_nm / 2)))
+    header_angle = None if angle is None else (angle - g.angle_zero_point_deg) / g.angle_scale
+    plan_fields = dict(
+        profile_name=profile.name,
+        profile_source=None if profile.source is None else str(profile.source),
+        mount=g.mount, medium=profile.medium, grooves_per_mm=float(model.grooves_per_mm),
+        order=int(model.order), grating_angle_deg=angle, header_angle=header_angle,
+        solved_for_nm=None if central_wavelength_nm is None else float(central_wavelength_nm),
+        alpha_deg=float(alpha), beta_centre_deg=beta_c,
+        littrow_angle_deg=(float(np.degrees(np.arcsin(sin_littrow)))
+                           if 0 < sin_littrow < 1 and g.mount != "grism" else None),
+        angular_dispersion_rad_per_nm=float(ang_disp), binning=bins, n_pixels=int(n),
+        wavelength_increases=bool(lam[2] > lam[0]), points=points, slit_width_um=slit_width_um,
+        collimator_focal_length_mm=f_coll,
+        free_spectral_range_nm=float(lam[1] / model.order),
+        free_spectral_range_px=float(lam[1] / model.order / points[1].dispersion_nm_per_px),
+        sensitivity_nm=(float(sens[0]), float(sens[1])), sensitivity_assumed=assumed,
+        overlaps=overlaps, filters=filters, blaze_nm=blaze_nm,
+        blaze_angle_deg=blaze_angle, angle_prior_shift_px=shift, line_width_px=float(width),
+        lines=lines, lamps=lamps, recommended=ranked[:_N_RECOMMENDED], profile_lamps=usual_score,
+        model=model,
+    )
+    notes = _notes(plan_fields, profile, approximate, slit_width_um, f_coll)
+    warnings = _warnings(plan_fields, band, sens, ranked)
+    return SetupPlan(**plan_fields, notes=notes, warnings=warnings)
+
+
+def _sample_points(model: GratingModel, xs: np.ndarray, slit_um, f_coll, efficiency):
+    lam = model.wavelength(xs)
+    disp = np.abs(model.dispersion(xs))
+    beta = model.beta(xs)
+    alpha, _ = model.angles
+    anamorphic = np.cos(np.radians(alpha)) / np.cos(np.radians(beta))
+    dbeta_dx = np.abs(np.radians(model.beta(xs + 0.5) - model.beta(xs - 0.5)))  # rad per px
+    eff = efficiency(lam, model.order)
+    labels = ("first pixel", "centre", "last pixel")
+    points = []
+    for i, label in enumerate(labels):
+        slit_px = res = r = None
+        if slit_um is not None and f_coll:
+            angle = slit_um * 1e-3 / f_coll * anamorphic[i]  # slit image angle after the grating
+            slit_px = float(angle / dbeta_dx[i])
+            res = slit_px * float(disp[i])
+            r = float(lam[i] / res)
+        points.append(SamplePoint(
+            label=label, pixel=float(xs[i]), wavelength_nm=float(lam[i]),
+            dispersion_nm_per_px=float(disp[i]), beta_deg=float(beta[i]),
+            anamorphic_magnification=float(anamorphic[i]), slit_image_px=slit_px,
+            resolution_nm=res, resolving_power=r,
+            sampling_resolving_power=float(lam[i] / (2.0 * disp[i])),
+            blaze_efficiency=None if not np.isfinite(eff[i]) else float(eff[i])))
+    return tuple(points)
+
+
+def _overlaps(model: GratingModel, sens: tuple[float, float]) -> tuple[OrderOverlap, ...]:
+    m = model.order
+    ends = np.array([0.0, model.n_pixels - 1.0])
+    out = []
+    for k in _other_orders(model, sens):
+        wl = model.with_parameters(order=k).wavelength(ends)
+        lo, hi = float(np.min(wl)), float(np.max(wl))
+        s_lo, s_hi = max(lo, sens[0]), min(hi, sens[1])
+        sensitive = (s_lo, s_hi) if s_lo <= s_hi else None
+        if sensitive is not None or k in (m - 1, m + 1, 2 * m):
+            out.append(OrderOverlap(order=k, wavelength_range_nm=(lo, hi), sensitive_range_nm=sensitive))
+    return tuple(out)
+
+
+def _line_table(model: GratingModel, medium: str, sens, efficiency, filters: FilterAdvice) -> pd.DataFrame:
+    catalogue = load_line_list(available_elements(), medium=medium)
+    wl = catalogue.wavelength_nm
+    n = model.n_pixels
+    m = model.order
+    top = float(np.max(model.wavelength(np.array([0.0, n - 1.0]))))
+    k_max = max(2 * m, math.ceil(m * top / float(wl.min())))
+    frames = []
+    for k in range(1, k_max + 1):
+        x = model.with_parameters(order=k).pixel(wl)
+        on = np.isfinite(x) & (x >= -0.5) & (x <= n - 0.5)
+        if not on.any():
+            continue
+        frames.append(pd.DataFrame({
+            "element": catalogue.element[on].astype(str),
+            "wavelength_nm": wl[on],
+            "order": np.full(on.sum(), k),
+            "x": x[on],
+            "apparent_wavelength_nm": model.wavelength(x[on]),
+            "intensity": catalogue.intensity[on],
+            "weak": catalogue.weak[on],
+            "blend": catalogue.blend[on],
+            "verified": catalogue.verified[on],
+            "efficiency": efficiency(wl[on], k),
+        }))
+    columns = ["element", "wavelength_nm", "order", "x", "apparent_wavelength_nm", "intensity",
+               "weak", "blend", "verified", "strong", "sensitive", "ghost", "filtered", "efficiency"]
+    if not frames:
+        return pd.DataFrame({c: [] for c in columns})
+    table = pd.concat(frames, ignore_index=True)
+    lam = table["wavelength_nm"].to_numpy()
+    blocked = np.zeros(len(table), bool)
+    if filters.cut_on_nm is not None:
+        blocked |= lam < filters.cut_on_nm
+    if filters.cut_off_nm is not None:
+        blocked |= lam > filters.cut_off_nm
+    table = table.assign(
+        strong=~table["weak"] & (table["intensity"] >= STRONG_INTENSITY),
+        sensitive=(lam >= sens[0]) & (lam <= sens[1]),
+        ghost=table["order"] != m,
+        filtered=blocked,
+    )
+    return table[columns].sort_values("x", kind="stable").reset_index(drop=True)
+
+
+def _prior_shift(profile: InstrumentProfile, model: GratingModel, centre_nm: float) -> float:
+    half_width = prior_box(profile, model).grating_angle_deg[1]
+    moved = model.with_parameters(grating_angle_deg=model.grating_angle_deg + half_width)
+    shift = float(moved.pixel(centre_nm)) - 0.5 * (model.n_pixels - 1)
+    return abs(shift) if math.isfinite(shift) else math.inf
+
+
+def _notes(fields: dict, profile: InstrumentProfile, approximate: bool, slit_um, f_coll) -> tuple[str, ...]:
+    notes = []
+    if approximate:
+        notes.append("Geometry unknown (mount 'approximate'): an effective first-order grating that "
+                     "reproduces the stated central wavelength and dispersion stands in for the real "
+                     "one; angles, orders and resolving power are only indicative.")
+    notes.append(f"Positions use the profile's nominal geometry without distortion; a grating angle "
+                 f"off by the profile's prior moves lines by up to {fields['angle_prior_shift_px']:.0f} px.")
+    if slit_um is None:
+        notes.append("No slit width given: only the 2-pixel sampling limit of the resolving power "
+                     "is reported.")
+    elif not f_coll:
+        notes.append("The profile gives no collimator focal length: the slit image, hence the "
+                     "slit-limited resolving power, cannot be computed; only the 2-pixel sampling "
+                     "limit is reported.")
+    else:
+        notes.append("Resolving power from the geometric slit image: slit width x anamorphic "
+                     "magnification cos(alpha)/cos(beta) x f_cam/f_coll, times the dispersion; no "
+                     "optical blur, diffraction or aberration, and no limit from the illuminated "
+                     "grating (R <= mN not checked). 'R (2 px)' is the sampling limit of two pixels "
+                     "per resolution element.")
+    if fields["blaze_nm"] is None:
+        notes.append("The profile gives no blaze wavelength: grating efficiency not estimated.")
+    elif profile.grating.mount == "reflection":
+        notes.append("Blaze efficiency: scalar approximation, sinc^2 of the phase across one groove "
+                     "facet (blaze angle from the Littrow condition m lambda_B = 2 d sin theta_B), "
+                     "relative to its peak; polarisation, shadowing and anomalies ignored.")
+    else:
+        notes.append("Blaze efficiency: scalar small-angle approximation sinc^2(pi (m - m_B "
+                     "lambda_B / lambda)), relative to its peak; polarisation and anomalies ignored.")
+    if fields["sensitivity_assumed"]:
+        notes.append(f"The profile states no sensitivity range: {DEFAULT_SENSITIVITY_NM[0]:.0f}–"
+                     f"{DEFAULT_SENSITIVITY_NM[1]:.0f} nm assumed (silicon detector).")
+    if fields["filters"].long_pass_needed or fields["filters"].short_pass_needed:
+        notes.append("Filter edges are not sharp (a coloured-glass edge spans some tens of nm, from "
+                     "memory): pick one that blocks below and passes above the whole window.")
+    width_note = ("the slit image (at least 2 px)" if fields["points"][1].slit_image_px is not None
+                  else f"{_DEFAULT_LINE_WIDTH_PX:g} px (assumed)")
+    notes.append(f"Lamp scores: line width {width_note}; 'ghosts' without an order-sorting filter, "
+                 f"'left' with the suggested one, which the score assumes; intensities are per "
+                 f"element, not comparable between lamps; score = min(usable,20) + min(strong "
+                 f"usable,10) - 30 x largest gap - ghosts left - 4 x (lamps - 1).")
+    return tuple(notes)
+
+
+def _warnings(fields: dict, band, sens, ranked) -> tuple[str, ...]:
+    out = []
+    if band[0] < sens[0] or band[1] > sens[1]:
+        out.append(f"Part of the detector ({band[0]:.1f}–{band[1]:.1f} nm) lies outside the "
+                   f"sensitivity range {sens[0]:.0f}–{sens[1]:.0f} nm.")
+    filters = fields["filters"]
+    if band[1] <= sens[0] or band[0] >= sens[1]:
+        out.append("The detector sees no working-order light within the sensitivity range.")
+    elif not filters.clears_detector:
+        clean = filters.clean_range_nm
+        where = f"only {clean[0]:.1f}–{clean[1]:.1f} nm is free of other orders" if clean else \
+            "no part of it is free of other orders"
+        out.append(f"The detector spans more than a free spectral range: even with the suggested "
+                   f"filter(s) {where}.")
+    effs = [p.blaze_efficiency for p in fields["points"] if p.blaze_efficiency is not None]
+    if effs and min(effs) < _FAINT_EFFICIENCY:
+        out.append(f"Blaze efficiency drops to {min(effs):.2f} of its peak on the detector: lines "
+                   f"there will be faint.")
+    if not any(s.rating == "solid" for s in ranked):
+        out.append("No shipped lamp or mix of up to three gives a solid calibration at this setting.")
+    return tuple(out)
