@@ -69,3 +69,10 @@ def test_demo_runs_on_the_bundled_frames(tmp_path, capsys):
     assert main(["demo", "-o", str(tmp_path)]) == EXIT_OK
     assert len(list(tmp_path.glob("*.solution.json"))) == 3
     assert capsys.readouterr().out.count("verdict   : OK") == 3
+
+
+def test_plan_command_is_wired(tmp_path, capsys):
+    code = main(["plan", "-p", "tho_longslit", "--central-wavelength", "600", "-o", str(tmp_path)])
+    assert code in (EXIT_OK, 3)  # 3: plan made with warnings
+    assert "setup plan" in capsys.readouterr().out
+    assert len(list(tmp_path.glob("*.plan.json"))) == 1

@@ -1,4 +1,4 @@
-"""Command line: ``wavecal solve``, ``wavecal demo``, ``wavecal show``, ``wavecal profiles``.
+"""Command line: ``wavecal solve``, ``demo``, ``show``, ``profiles`` and ``plan``.
 
 Exit codes (also in the README):
 
@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import sys
 import time
 from pathlib import Path
@@ -89,6 +90,11 @@ def _parser() -> argparse.ArgumentParser:
     show.add_argument("solutions", nargs="+", type=Path)
 
     sub.add_parser("profiles", help="list the bundled example instrument profiles")
+
+    from .plan_cli import add_plan_arguments
+
+    add_plan_arguments(sub.add_parser(
+        "plan", help="what a grating setting will show: range, orders, filter, lamps, blaze"))
     return parser
 
 
@@ -170,12 +176,18 @@ def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
                         format="%(levelname)s %(name)s: %(message)s")
-    runners = {"solve": _run_solve, "demo": _run_demo, "show": _run_show, "profiles": _run_profiles}
+    from .plan_cli import run_plan_command
+
+    runners = {"solve": _run_solve, "demo": _run_demo, "show": _run_show, "profiles": _run_profiles,
+               "plan": run_plan_command}
     try:
         return runners[args.command](args)
     except WavecalError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except BrokenPipeError:  # output piped into a program that stopped reading (e.g. head)
+        sys.stdout = open(os.devnull, "w")  # noqa: SIM115 - silence the flush at exit
+        return EXIT_OK
 
 
 if __name__ == "__main__":  # pragma: no cover
