@@ -26,6 +26,7 @@ from .model_setup import PriorBox, nominal_model, prior_box
 from .optics import GratingModel
 from .peaks import PeakFlag, PeakTable, find_peaks
 from .profile import InstrumentProfile
+from .slit import SlitMeasurement, SlitShift, measure_slit
 from .solution import SPEED_OF_LIGHT_KMS, Solution
 from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 
@@ -67,6 +68,9 @@ class Calibration:
     fit : FitResult or None
     nominal : GratingModel
     box : PriorBox
+    slit : SlitMeasurement or None
+        The slit tracing (None when not traced); ``spectrum`` and ``peaks`` above are its
+        (possibly straightened, reference-row) ones.
     """
 
     solution: Solution
@@ -76,6 +80,7 @@ class Calibration:
     fit: FitResult | None
     nominal: GratingModel
     box: PriorBox
+    slit: SlitMeasurement | None = None
 
 
 def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
@@ -84,6 +89,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
                     rows: tuple[int, int] | None = None,
                     min_snr: float = 5.0,
                     free_grooves: bool = False,
+                    trace_slit: bool = True,
                     details: bool = False) -> Solution | Calibration:
     """Find, identify and fit the lines of one arc frame.
 
@@ -103,6 +109,12 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         Detection threshold of the peak finder (peak signal-to-noise).
     free_grooves : bool
         Also fit the groove density (normally fixed by the grating's ruling).
+    trace_slit : bool
+        On a frame of at least :data:`~wavecal.slit.MIN_SLIT_ROWS` slit rows, follow the lines
+        along the slit and model their tilt and curvature (:func:`wavecal.slit.measure_slit`):
+        the line centres are referred to the slit's reference row (straightening the frame
+        first if the lines are smeared in the sum) and the solution gives the wavelength at
+        every pixel of the slit.
     details : bool
         Return a :class:`Calibration` with the intermediate products instead of the solution.
 
@@ -123,6 +135,10 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
 
     spectrum = extract_spectrum(frame, rows=rows)
     peaks = find_peaks(spectrum, min_snr=min_snr)
+    slit = None
+    if trace_slit:
+        slit = measure_slit(frame, spectrum, peaks, min_snr=min_snr)
+        spectrum, peaks = slit.spectrum, slit.peaks
     line_list = load_line_list(lamps, medium=profile.medium)
     lo, hi = _reachable_range(nominal, box)
     in_range = line_list.in_range(lo, hi)
@@ -137,9 +153,10 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         solution = _failed(profile, frame, lamps, table, ident.notes or ("no identification",))
     else:
         solution, fit = _fit_and_judge(profile, frame, lamps, table, in_range, line_list,
-                                       ident, box, fwhm, free_grooves)
+                                       ident, box, fwhm, free_grooves,
+                                       slit.shift if slit is not None else None)
     if details:
-        return Calibration(solution, spectrum, peaks, ident, fit, nominal, box)
+        return Calibration(solution, spectrum, peaks, ident, fit, nominal, box, slit)
     return solution
 
 
@@ -207,7 +224,8 @@ def _confirm(fit: FitResult, box, x, x_err, lam, lam_err, excluded, free_grooves
 
 
 def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: LineList,
-                   ident: Identification, box: PriorBox, fwhm: float, free_grooves: bool):
+                   ident: Identification, box: PriorBox, fwhm: float, free_grooves: bool,
+                   slit: SlitShift | None):
     x = table["x"].to_numpy(float)
     x_err = table["x_err"].to_numpy(float)
     lam = lines.wavelength_nm
@@ -277,7 +295,7 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
         statistics=statistics,
         covered_range_px=(float(used_x.min()), float(used_x.max())) if used_x.size else (math.nan, math.nan),
         frame=str(frame.path) if frame.path else None, profile=profile.name, lamps=tuple(lamps),
-        dispersion_axis=profile.detector.dispersion_axis, software_version=__version__)
+        dispersion_axis=profile.detector.dispersion_axis, software_version=__version__, slit=slit)
     return solution, fit
 
 

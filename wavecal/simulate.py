@@ -19,11 +19,24 @@ unit-flux line centred at ``c`` puts
 
 into the pixel, with ``d = x - c``, ``a = w/2`` and ``G(t) = t Phi(t) + phi(t)`` the
 antiderivative of the standard normal distribution function ``Phi`` (``phi`` its density).
+
+Line image along the slit
+-------------------------
+By default every line is a straight image of the slit, parallel to the spatial axis. With
+``line_tilt_deg`` and ``line_curvature_px`` a line at pixel ``x`` on the reference row ``y_c``
+(the centre of the simulated slit) lies at ``x + shift(x, y)`` on row ``y``, with
+
+    shift(x, y) = tan(tilt(x)) (y - y_c) + curvature(x) ((y - y_c) / h)²
+
+``h`` the half-length of the slit: the tilt is the angle of the line image from the spatial axis
+(positive: the line moves towards larger ``x`` as ``y`` grows) and the curvature the sagitta, the
+extra shift at the slit ends relative to the straight tilted line. Both may change linearly from
+the first to the last illuminated pixel along the dispersion (see :class:`LineImageShape`).
 """
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -38,7 +51,7 @@ from .model_setup import nominal_model
 from .optics import GratingModel
 from .profile import InstrumentProfile, parse_lamps
 
-__all__ = ["SimulatedArc", "simulate_arc", "slit_line_profile"]
+__all__ = ["LineImageShape", "SimulatedArc", "simulate_arc", "slit_line_profile"]
 
 #: Lines up to this many pixels beyond the ends of the detector still spill light onto it.
 _EDGE_MARGIN_PX = 12
@@ -49,6 +62,63 @@ _ELEMENT_SCATTER = 0.5
 #: Groove densities tried for the hidden grating of an ``approximate`` profile.
 _HIDDEN_GROOVES = (300.0, 600.0, 900.0, 1200.0)
 _SQRT_2PI = np.sqrt(2.0 * np.pi)
+
+
+@dataclass(frozen=True)
+class LineImageShape:
+    """Where the image of a line lies on each row of the slit (see the module docstring).
+
+    Coordinates are 0-based pixels of the frame as read (binned): ``x`` along the dispersion
+    axis, ``y`` along the spatial axis.
+
+    Attributes
+    ----------
+    tilt_deg : tuple of float
+        Angle of the line image from the spatial axis at the first and at the last pixel of
+        ``x_range`` (linear in between), degrees.
+    curvature_px : tuple of float
+        Sagitta (extra shift at the slit ends, pixels) at the first and last pixel of
+        ``x_range``.
+    reference_row : float
+        Row ``y_c`` where the shift is zero: the centre of the simulated slit.
+    half_length : float
+        Half-length ``h`` of the slit (rows) at which the curvature term equals the sagitta.
+    x_range : tuple of float
+        First and last illuminated pixel along the dispersion axis.
+    """
+
+    tilt_deg: tuple[float, float] = (0.0, 0.0)
+    curvature_px: tuple[float, float] = (0.0, 0.0)
+    reference_row: float = 0.0
+    half_length: float = 1.0
+    x_range: tuple[float, float] = (0.0, 1.0)
+
+    @property
+    def straight(self) -> bool:
+        """True when the lines run exactly along the spatial axis (no tilt, no curvature)."""
+        return not any(self.tilt_deg) and not any(self.curvature_px)
+
+    def shift(self, x, y):
+        """Shift (pixels along the dispersion) on row ``y`` of a line at ``x`` on the reference row."""
+        x = np.asarray(x, dtype=float)
+        t = np.asarray(y, dtype=float) - self.reference_row
+        x0, x1 = self.x_range
+        s = (x - x0) / (x1 - x0) if x1 != x0 else np.zeros_like(x)
+        tilt = np.radians(self.tilt_deg[0] + (self.tilt_deg[1] - self.tilt_deg[0]) * s)
+        sagitta = self.curvature_px[0] + (self.curvature_px[1] - self.curvature_px[0]) * s
+        return np.tan(tilt) * t + sagitta * (t / self.half_length) ** 2
+
+    def reference_position(self, x, y, *, iterations: int = 8):
+        """Position on the reference row of the line seen at ``x`` on row ``y``.
+
+        Solves ``x_ref + shift(x_ref, y) = x`` by fixed-point iteration (the shift changes
+        slowly with ``x``, so a few steps reach round-off).
+        """
+        x = np.asarray(x, dtype=float)
+        ref = x - self.shift(x, y)
+        for _ in range(iterations):
+            ref = x - self.shift(ref, y)
+        return ref
 
 
 @dataclass(frozen=True, eq=False)
@@ -66,7 +136,8 @@ class SimulatedArc:
         The true pixel-to-wavelength model (binned pixels along the dispersion axis of ``data``).
     lines : pandas.DataFrame
         One row per line put on the detector, sorted by ``x_true``: ``wavelength_nm``,
-        ``element``, ``order`` (diffraction order), ``x_true`` (0-based raw pixel), ``flux_e``
+        ``element``, ``order`` (diffraction order), ``x_true`` (0-based raw pixel on the
+        reference row of :attr:`line_shape`), ``flux_e``
         (electrons over the whole slit), ``snr`` (expected peak S/N in the sum over the
         illuminated rows), ``fwhm_px``, ``listed`` (in the shipped line list), ``ghost``
         (next-order image), ``saturated`` (peak at or above the saturation level).
@@ -79,6 +150,8 @@ class SimulatedArc:
         Binning ``(along axis 0, along axis 1)``.
     slit_rows : tuple of int
         ``[start, stop)`` along the spatial axis of the rows lit to at least half the maximum.
+    line_shape : LineImageShape
+        How the lines run along the slit; its reference row is the centre of the slit.
     """
 
     data: np.ndarray
@@ -89,10 +162,26 @@ class SimulatedArc:
     nominal: GratingModel
     binning: tuple[int, int]
     slit_rows: tuple[int, int]
+    line_shape: LineImageShape = field(default_factory=LineImageShape)
 
-    def true_wavelength(self, x):
-        """True wavelength (nm, the profile's medium) at 0-based raw pixel ``x``."""
-        return self.truth.wavelength(x)
+    def true_wavelength(self, x, y=None):
+        """True wavelength (nm, the profile's medium) at 0-based raw pixel ``x``.
+
+        Parameters
+        ----------
+        x : array_like
+            Pixel along the dispersion axis.
+        y : array_like, optional
+            Pixel along the spatial axis (broadcast with ``x``); default the reference row of
+            :attr:`line_shape` (the slit centre), where ``truth`` holds as it is.
+        """
+        if y is None:
+            return self.truth.wavelength(x)
+        return self.truth.wavelength(self.line_shape.reference_position(x, y))
+
+    def true_shift(self, x, y):
+        """True shift (pixels) on row ``y`` of the line at ``x`` on the reference row."""
+        return self.line_shape.shift(x, y)
 
     def to_hdulist(self) -> fits.HDUList:
         """The frame as FITS HDUs, the image in the HDU the profile says (default: primary)."""
@@ -235,6 +324,8 @@ def simulate_arc(
     date_obs: str = "2025-03-14T19:42:05.0",
     dtype: str = "uint16",
     noise_seed: int | None = None,
+    line_tilt_deg: float | tuple[float, float] = 0.0,
+    line_curvature_px: float | tuple[float, float] = 0.0,
 ) -> SimulatedArc:
     """Simulate a raw arc-lamp frame of ``profile`` with a known true wavelength model.
 
@@ -301,6 +392,14 @@ def simulate_arc(
     noise_seed : int, optional
         Seed of the per-exposure noise (photon, read noise, cosmic rays): with the same ``seed``
         and another ``noise_seed`` you get another exposure of the same lamp and setting.
+    line_tilt_deg : float or (float, float)
+        Angle of the line images from the spatial axis (degrees, |angle| < 45; positive: towards
+        larger pixels as the spatial pixel grows), or its values at the first and last
+        illuminated pixel along the dispersion (linear in between). See the module docstring.
+    line_curvature_px : float or (float, float)
+        Sagitta of the line images: extra shift (pixels) at the slit ends relative to the
+        straight tilted line, or its values at the first and last illuminated pixel. Zero tilt
+        and curvature (the default) give straight lines along the spatial axis.
 
     Returns
     -------
@@ -314,6 +413,11 @@ def simulate_arc(
     """
     _check_options(peak_snr, missing_fraction, unlisted_fraction, intensity_scatter,
                    slit_fraction, dtype, cosmic_rays, hot_pixels, saturate, scattered_light)
+    tilt, curvature = _pair(line_tilt_deg, "line_tilt_deg"), _pair(line_curvature_px,
+                                                                     "line_curvature_px")
+    if max(abs(tilt[0]), abs(tilt[1])) >= 45.0:
+        msg = f"line_tilt_deg must be within (-45, 45) degrees, got {line_tilt_deg!r}"
+        raise ValueError(msg)
     rng = np.random.default_rng(seed)
     lamp_list = parse_lamps(lamps) if isinstance(lamps, str) else tuple(lamps or profile.lamps)
     if not lamp_list:
@@ -335,7 +439,10 @@ def simulate_arc(
     width = _LineWidth.draw(rng, fwhm_px, slit_fraction, focus_variation)
     lines = _place_lines(catalogue, lamp_list, truth, layout, (lo, hi), rng, profile,
                          missing_fraction, unlisted_fraction, intensity_scatter, ghosts)
-    spatial, slit_rows = _slit_illumination(layout, rng)
+    spatial, slit_rows, (slit_centre, slit_half) = _slit_illumination(layout, rng)
+    shape = LineImageShape(tilt_deg=tilt, curvature_px=curvature, reference_row=slit_centre,
+                           half_length=slit_half,
+                           x_range=(float(layout.disp[0]), float(layout.disp[1] - 1)))
     cont_shape = _continuum_shape(layout, rng)
     bias = _bias(profile, rng, bias_adu)
     hot = _hot_pixels(layout, rng, hot_pixels)
@@ -343,7 +450,7 @@ def simulate_arc(
 
     lines, cont_level = _set_fluxes(lines, layout, width, truth, spatial, slit_rows, cont_shape,
                                     profile, peak_snr, scattered_light, boosts, bias[0])
-    image = _expected_image(lines, layout, width, truth, spatial, cont_shape, cont_level)
+    image = _expected_image(lines, layout, width, truth, spatial, cont_shape, cont_level, shape)
     lines = _flag_saturated(lines, image, bias[0], profile)
     noise_rng = rng if noise_seed is None else np.random.default_rng(noise_seed)
     data = _read_out(image, layout, profile, bias, hot, noise_rng, cosmic_rays, dtype)
@@ -351,7 +458,8 @@ def simulate_arc(
     columns = ["wavelength_nm", "element", "order", "x_true", "flux_e", "snr", "fwhm_px",
                "listed", "ghost", "saturated"]
     return SimulatedArc(data=data, header=header, truth=truth, lines=lines[columns],
-                        profile=profile, nominal=nominal, binning=bins, slit_rows=slit_rows)
+                        profile=profile, nominal=nominal, binning=bins, slit_rows=slit_rows,
+                        line_shape=shape)
 
 
 # -- option checks and geometry --------------------------------------------------------------
@@ -372,6 +480,15 @@ def _check_options(peak_snr, missing_fraction, unlisted_fraction, intensity_scat
     for ok, msg in rules:
         if not ok:
             raise ValueError(msg)
+
+
+def _pair(value, name: str) -> tuple[float, float]:
+    """A number or a pair of numbers as a pair of finite floats."""
+    pair = (value, value) if np.isscalar(value) else tuple(value)
+    if len(pair) != 2 or not all(np.isfinite(float(v)) for v in pair):
+        msg = f"{name} must be a finite number or a pair of them, got {value!r}"
+        raise ValueError(msg)
+    return (float(pair[0]), float(pair[1]))
 
 
 def _binning(profile: InstrumentProfile, binning) -> tuple[int, int]:
@@ -642,8 +759,9 @@ def _blaze_factor(wl, profile):
 
 
 # -- image -----------------------------------------------------------------------------------
-def _slit_illumination(layout: _Layout, rng) -> tuple[np.ndarray, tuple[int, int]]:
-    """Fraction of the slit light per spatial row (sums to 1) and the half-maximum rows."""
+def _slit_illumination(layout: _Layout, rng):
+    """Fraction of the slit light per spatial row (sums to 1), the half-maximum rows and the
+    slit's (centre, half-length) in rows."""
     s0, s1 = layout.spatial
     n = s1 - s0
     u = rng.uniform(0.0, 1.0, size=4)
@@ -658,7 +776,7 @@ def _slit_illumination(layout: _Layout, rng) -> tuple[np.ndarray, tuple[int, int
     lit[s1:] = 0.0
     lit /= lit.sum()
     rows = np.flatnonzero(lit >= 0.5 * lit.max())
-    return lit, (int(rows[0]), int(rows[-1]) + 1)
+    return lit, (int(rows[0]), int(rows[-1]) + 1), (float(centre), float(0.5 * length))
 
 
 def _continuum_shape(layout: _Layout, rng) -> np.ndarray:
@@ -718,6 +836,33 @@ def _spectrum_1d(x, flux, layout: _Layout, width: _LineWidth, n_pixels: int) -> 
     return spec
 
 
+def _shaped_lines(x, flux, layout: _Layout, width: _LineWidth, n_pixels: int, spatial: np.ndarray,
+                  shape: LineImageShape) -> np.ndarray:
+    """Electrons of the lines per (spatial, dispersion) pixel, each row with its own shift."""
+    image = np.zeros((layout.n_spatial, layout.n_disp))
+    lit = np.flatnonzero(spatial > 1e-12 * spatial.max())
+    if len(x) == 0 or lit.size == 0:
+        return image
+    _, slit, sigma = width.at(x, n_pixels)
+    half = int(np.ceil(np.max(0.5 * slit + 6 * sigma))) + 2
+    offsets = np.arange(-half, half + 1)
+    d0, d1 = layout.disp
+    rows = np.arange(lit[0], lit[-1] + 1)
+    per_chunk = max(1, 2_000_000 // (len(x) * offsets.size))
+    for start in range(0, rows.size, per_chunk):
+        chunk = rows[start:start + per_chunk]
+        centre = x[None, :] + shape.shift(x[None, :], chunk[:, None])
+        pix = np.floor(centre)[:, :, None] + offsets
+        frac = slit_line_profile(pix, centre[:, :, None], slit_px=slit[None, :, None],
+                                 blur_sigma_px=sigma[None, :, None])
+        value = frac * (flux[None, :, None] * spatial[chunk][:, None, None])
+        inside = (pix >= d0) & (pix < d1)
+        index = (np.arange(chunk.size)[:, None, None] * layout.n_disp + pix)[inside].astype(np.int64)
+        image[chunk] = np.bincount(index, weights=value[inside],
+                                   minlength=chunk.size * layout.n_disp).reshape(chunk.size, -1)
+    return image
+
+
 def _set_fluxes(lines, layout, width, truth, spatial, slit_rows, cont_shape, profile, peak_snr,
                 scattered_light, boosts, bias):
     """Scale the relative line weights to electrons; return the lines (with ``flux_e``,
@@ -767,11 +912,14 @@ def _continuum_rows(layout: _Layout, spatial: np.ndarray) -> np.ndarray:
     return spatial / spatial.max() + lit
 
 
-def _expected_image(lines, layout, width, truth, spatial, cont_shape, cont_level) -> np.ndarray:
+def _expected_image(lines, layout, width, truth, spatial, cont_shape, cont_level,
+                    shape: LineImageShape) -> np.ndarray:
     """Expected electrons, shape (spatial, dispersion)."""
-    spec = _spectrum_1d(lines["x_true"].to_numpy(), lines["flux_e"].to_numpy(), layout, width,
-                        truth.n_pixels)
-    image = np.outer(spatial, spec)
+    x, flux = lines["x_true"].to_numpy(), lines["flux_e"].to_numpy()
+    if shape.straight:
+        image = np.outer(spatial, _spectrum_1d(x, flux, layout, width, truth.n_pixels))
+    else:
+        image = _shaped_lines(x, flux, layout, width, truth.n_pixels, spatial, shape)
     if cont_level > 0:
         image += cont_level * np.outer(_continuum_rows(layout, spatial), cont_shape)
     return image

@@ -5,6 +5,15 @@ evaluates the fitted physical model (``wavelength``/``pixel``), carries every de
 its identification (``lines``), the fitted parameters with uncertainties and correlations, and
 the verdict (``status`` and ``reasons``). The JSON layout is documented in the README
 ("Solution file").
+
+Whole slit
+----------
+The physical model gives the wavelength along the *reference row* of the slit. A solution of a
+long-slit frame also carries a :class:`~wavecal.slit.SlitShift` ``Δ(x, y)``: a line at ``x`` on
+the reference row lies at ``x + Δ(x, y)`` on row ``y`` (``y`` the 0-based pixel along the spatial
+axis of the raw frame), so the wavelength at ``(x, y)`` is the model's at the reference-row
+position ``r`` solving ``r + Δ(r, y) = x``. Without a slit model (a single row, or
+``trace_slit=False``) the wavelength does not depend on ``y``.
 """
 from __future__ import annotations
 
@@ -23,11 +32,15 @@ from .errors import SolutionFileError
 from .airvac import air_to_vacuum, vacuum_to_air
 from .fit import wavelength_sigma
 from .optics import GratingModel
+from .slit import SlitShift
 
-__all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "STATUSES", "SPEED_OF_LIGHT_KMS"]
+__all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "READABLE_VERSIONS", "STATUSES",
+           "SPEED_OF_LIGHT_KMS"]
 
-#: Version of the JSON layout written by :meth:`Solution.write`.
-SCHEMA_VERSION = 1
+#: Version of the JSON layout written by :meth:`Solution.write` (2: optional ``slit`` block).
+SCHEMA_VERSION = 2
+#: Versions :func:`load_solution` reads.
+READABLE_VERSIONS = (1, 2)
 #: Possible verdicts, from best to worst.
 STATUSES = ("ok", "suspect", "failed")
 #: Speed of light in km/s (exact, SI definition).
@@ -77,6 +90,9 @@ class Solution:
     dispersion_axis : int
         numpy axis of the raw frame along which ``x`` runs.
     software_version : str
+    slit : SlitShift or None
+        How line positions shift along the slit (see the module docstring); None for a
+        single-row solution or when the slit was not traced.
     """
 
     status: str
@@ -94,6 +110,13 @@ class Solution:
     lamps: tuple[str, ...] = ()
     dispersion_axis: int = 1
     software_version: str = ""
+    slit: SlitShift | None = None
+
+    @property
+    def reference_row(self) -> float | None:
+        """Row (pixel ``y``) along which the physical model holds as it is; None without a slit
+        model."""
+        return None if self.slit is None else self.slit.reference_row
 
     # -- evaluation ------------------------------------------------------------------------
     def _require_model(self) -> GratingModel:
@@ -104,32 +127,46 @@ class Solution:
         return self.model
 
     def wavelength(self, x, y=None, *, medium: str | None = None):
-        """Wavelength (nm) at 0-based pixel ``x`` along the dispersion axis.
+        """Wavelength (nm) at 0-based pixel ``x`` along the dispersion axis, on row ``y``.
 
         Parameters
         ----------
         x : float or array_like
             0-based pixel along the dispersion axis of the raw frame.
         y : float or array_like, optional
-            Position along the slit; the single-row solution does not depend on it.
+            0-based pixel along the spatial axis of the raw frame (broadcast with ``x``).
+            Default: the reference row. Ignored (beyond broadcasting) without a slit model.
         medium : {"air", "vacuum"}, optional
             Medium of the returned wavelengths; default :attr:`medium`. Converted with
             :mod:`wavecal.airvac` (Ciddor 1996, standard air) when it differs.
         """
         model = self._require_model()
-        lam = self._to_medium(model.wavelength(x), self.medium, medium or self.medium)
+        lam = self._to_medium(model.wavelength(self._reference_x(x, y)), self.medium,
+                              medium or self.medium)
         if y is not None:
             lam = lam + np.zeros(np.broadcast(np.asarray(x), np.asarray(y)).shape)
         return lam
 
-    def pixel(self, wavelength_nm, *, medium: str | None = None):
-        """0-based pixel along the dispersion axis where ``wavelength_nm`` lands (NaN if none).
+    def pixel(self, wavelength_nm, y=None, *, medium: str | None = None):
+        """0-based pixel along the dispersion axis where ``wavelength_nm`` lands on row ``y``
+        (default the reference row); NaN if nowhere.
 
         ``medium`` says which medium ``wavelength_nm`` is in (default :attr:`medium`).
         """
         lam = self._to_medium(np.asarray(wavelength_nm, dtype=float), medium or self.medium,
                               self.medium)
-        return self._require_model().pixel(lam)
+        x = self._require_model().pixel(lam)
+        if y is None:
+            return x
+        if self.slit is None:
+            return x + np.zeros(np.broadcast(np.asarray(x), np.asarray(y)).shape)
+        return x + self.slit.shift(x, y)
+
+    def _reference_x(self, x, y):
+        """Position on the reference row of the point ``x`` on row ``y``."""
+        if y is None or self.slit is None:
+            return x
+        return self.slit.reference_position(x, y)
 
     @staticmethod
     def _to_medium(wavelength_nm, source: str, target: str):
@@ -140,16 +177,27 @@ class Solution:
             raise ValueError(msg)
         return air_to_vacuum(wavelength_nm) if target == "vacuum" else vacuum_to_air(wavelength_nm)
 
-    def extrapolated(self, x) -> np.ndarray:
-        """True where ``x`` lies outside the range covered by identified lines."""
-        lo, hi = self.covered_range_px
-        x = np.asarray(x, dtype=float)
-        return (x < lo) | (x > hi)
+    def extrapolated(self, x, y=None) -> np.ndarray:
+        """True where the solution is extrapolated at ``(x, y)``.
 
-    def wavelength_uncertainty(self, x) -> np.ndarray:
-        """1-sigma uncertainty (nm) of :meth:`wavelength` from the parameter covariance."""
+        That is where the reference-row position of ``x`` lies outside the range covered by
+        identified lines (:attr:`covered_range_px`) or, with a slit model, where ``y`` lies
+        outside the rows the lines were traced over (``slit.rows_covered``).
+        """
+        lo, hi = self.covered_range_px
+        x = np.asarray(self._reference_x(np.asarray(x, dtype=float), y), dtype=float)
+        out = (x < lo) | (x > hi)
+        if y is not None:
+            out = out | (self.slit.outside(y) if self.slit is not None
+                         else np.zeros(np.shape(y), bool))
+        return out
+
+    def wavelength_uncertainty(self, x, y=None) -> np.ndarray:
+        """1-sigma uncertainty (nm) of :meth:`wavelength` from the parameter covariance (the
+        slit model's own uncertainty is not included)."""
         model = self._require_model()
         names = list(self.correlation.get("names", ()))
+        x = self._reference_x(np.asarray(x, dtype=float), y)
         if self.covariance is None or not names:
             return np.full(np.shape(x), np.nan)
         return wavelength_sigma(model, names, self.covariance, x)
@@ -170,7 +218,8 @@ class Solution:
         stats = {k: _jsonable(v) for k, v in self.statistics.items()}
         out = {"status": self.status, "reasons": list(self.reasons), "medium": self.medium,
                "frame": self.frame, "profile": self.profile, "lamps": list(self.lamps),
-               "covered_range_px": [_jsonable(v) for v in self.covered_range_px], **stats}
+               "covered_range_px": [_jsonable(v) for v in self.covered_range_px], **stats,
+               "slit": None if self.slit is None else self.slit.summary()}
         if self.model is not None:
             grid = np.array([0.0, 0.5 * (self.model.n_pixels - 1), self.model.n_pixels - 1.0])
             lam = self.model.wavelength(grid)
@@ -196,6 +245,7 @@ class Solution:
             "lamps": list(self.lamps),
             "covered_range_px": [_jsonable(v) for v in self.covered_range_px],
             "model": None if self.model is None else _model_to_dict(self.model),
+            "slit": None if self.slit is None else self.slit.to_dict(),
             "parameters": [{k: _jsonable(v) for k, v in p.items()} for p in self.parameters],
             "correlation": {"names": list(self.correlation.get("names", ())),
                             "matrix": _jsonable(self.correlation.get("matrix", []))},
@@ -240,6 +290,8 @@ def _float_or_nan(value: Any) -> float:
 def load_solution(path: str | Path) -> Solution:
     """Read a solution file written by :meth:`Solution.write`.
 
+    Files of schema version 1 (no slit model) and 2 are read.
+
     Raises
     ------
     SolutionFileError
@@ -258,8 +310,9 @@ def load_solution(path: str | Path) -> Solution:
         msg = f"{path}: not a wavecal solution file (no 'schema': 'wavecal-solution')"
         raise SolutionFileError(msg)
     version = data.get("schema_version")
-    if version != SCHEMA_VERSION:
-        msg = f"{path}: solution schema version {version!r} is not supported (this is {SCHEMA_VERSION})"
+    if version not in READABLE_VERSIONS:
+        msg = (f"{path}: solution schema version {version!r} is not supported (this wavecal reads "
+               f"versions {', '.join(map(str, READABLE_VERSIONS))})")
         raise SolutionFileError(msg)
     try:
         model = None
@@ -273,6 +326,7 @@ def load_solution(path: str | Path) -> Solution:
             lines[col] = lines[col].map(_float_or_nan).astype(float)
         cov = data.get("covariance")
         corr = data.get("correlation") or {}
+        slit = data.get("slit")
         return Solution(
             status=data["status"],
             reasons=tuple(data["reasons"]),
@@ -290,6 +344,7 @@ def load_solution(path: str | Path) -> Solution:
             lamps=tuple(data.get("lamps", ())),
             dispersion_axis=int(data.get("dispersion_axis", 1)),
             software_version=data.get("software_version", ""),
+            slit=None if slit is None else SlitShift.from_dict(slit),
         )
     except (KeyError, TypeError, ValueError) as exc:
         msg = f"{path}: solution file is inconsistent: {exc}"

@@ -24,6 +24,16 @@ a second run with ``details=True``), since a wrong choice of rows ruins everythi
 
 Targets: success rate >= 97 %, no wrong ok, median RMS error <= 0.03 px on frames with peak
 S/N > 100.
+
+Long slit (``--long-slit N``, default 24 frames after the regular ones, drawn from their own
+random stream so that the regular frames stay as they were): reflection-grating frames like the
+"grooves" category whose lines are tilted by up to 3 degrees and curved by up to 2 px (sagitta
+at the slit ends), both changing linearly along the dispersion. For every two-dimensional frame
+the error is also evaluated over the whole illuminated slit, ``(lambda_solution(x, y) -
+lambda_true(x, y)) / |d lambda_true/dx|`` for ``x`` over the identified lines' range and ``y``
+over the rows lit to at least half the maximum; a long-slit frame counts as a success only when
+that whole-slit error stays below 0.25 px. Target: RMS error over the whole illuminated slit
+<= 0.05 px.
 """
 from __future__ import annotations
 
@@ -45,6 +55,12 @@ from wavecal.profile import InstrumentProfile, profile_from_dict
 from wavecal.simulate import SimulatedArc, simulate_arc
 
 SUCCESS_PX = 0.25
+SLIT_TARGET_PX = 0.05
+LONG_SLIT = "long slit"
+#: Extra element of the random-stream key of the long-slit cases (the regular cases use none).
+_LONG_SLIT_STREAM = 3
+MAX_LINE_TILT_DEG = 3.0
+MAX_LINE_CURVATURE_PX = 2.0
 MIN_USABLE_LINES = 8
 USABLE_SNR = 10.0
 FEW_LINES = (5, 8)
@@ -90,14 +106,21 @@ class Outcome:
     seconds: float
     tags: tuple[str, ...]
     note: str = ""
+    slit_rms_err: float = math.nan
+    slit_max_err: float = math.nan
+
+    @property
+    def judged_err(self) -> float:
+        """The error a success is judged on: over the whole slit for a long-slit frame."""
+        return self.slit_max_err if LONG_SLIT in self.tags else self.max_err
 
     @property
     def success(self) -> bool:
-        return self.verdict in ("ok", "suspect") and self.max_err < SUCCESS_PX
+        return self.verdict in ("ok", "suspect") and self.judged_err < SUCCESS_PX
 
     @property
     def wrong_ok(self) -> bool:
-        return self.verdict == "ok" and not self.max_err < SUCCESS_PX
+        return self.verdict == "ok" and not self.judged_err < SUCCESS_PX
 
 
 # -- drawing cases ---------------------------------------------------------------------------
@@ -144,15 +167,24 @@ def _range_for(grooves: float, n_disp: int, pixel_um: float, rng, few: bool) -> 
     return 0.9 * d_nm * length_mm / span, span
 
 
-def draw_case(index: int, base_seed: int, attempt: int) -> Case:
-    """Draw case ``index`` (the category cycles with the index; ``attempt`` re-draws)."""
-    rng = np.random.default_rng([base_seed, index, attempt])
-    category = CATEGORIES[index % len(CATEGORIES)]
+def draw_case(index: int, base_seed: int, attempt: int, *, long_slit: bool = False) -> Case:
+    """Draw case ``index`` (the category cycles with the index; ``attempt`` re-draws).
+
+    With ``long_slit`` the case is the ``index``-th long-slit case instead, from its own random
+    stream: a reflection grating (as in the "grooves" category), either dispersion axis, and
+    lines tilted and curved along the slit.
+    """
+    if long_slit:
+        rng = np.random.default_rng([base_seed, index, attempt, _LONG_SLIT_STREAM])
+        category = LONG_SLIT
+    else:
+        rng = np.random.default_rng([base_seed, index, attempt])
+        category = CATEGORIES[index % len(CATEGORIES)]
     tags = {category}
     kind = {"transmission": "transmission", "grism": "grism",
             "approximate": "approximate"}.get(category, "reflection")
     lamps = str(rng.choice(LAMP_MIXES))
-    any_axis = category in ("axis/direction", "approximate", "detector size")
+    any_axis = category in ("axis/direction", "approximate", "detector size", LONG_SLIT)
     axis = int(rng.integers(2)) if any_axis else 1
     direction = int(rng.choice([1, -1])) if category in ("axis/direction", "approximate") else 1
     n_disp = int(rng.choice([1024, 2048, 3072, 4096]))
@@ -174,6 +206,8 @@ def draw_case(index: int, base_seed: int, attempt: int) -> Case:
            "unlisted_fraction": float(rng.uniform(0.05, 0.25)),
            "cosmic_rays": int(rng.integers(0, 60)), "hot_pixels": int(rng.integers(0, 30)),
            "saturate": int(rng.choice([0, 0, 0, 1, 2]))}
+    if category == LONG_SLIT:
+        sim |= _line_shape(rng)
     profile = {"instrument": {"name": f"THO synthetic case {index}", "medium": "air",
                               "lamps": [], "sensitivity_nm": list(SENSITIVITY_NM)},
                "detector": _detector(rng, n_disp, axis, direction, pixel_um),
@@ -224,6 +258,18 @@ def draw_case(index: int, base_seed: int, attempt: int) -> Case:
     return Case(index, kind, grooves, lamps, profile, sim, tags)
 
 
+def _line_shape(rng) -> dict:
+    """Tilt (up to 3 degrees) and sagitta (up to 2 px) of the line images, each at the first and
+    last pixel along the dispersion, for :func:`~wavecal.simulate.simulate_arc`."""
+    tilt = rng.uniform(-MAX_LINE_TILT_DEG, MAX_LINE_TILT_DEG)
+    sagitta = rng.uniform(-MAX_LINE_CURVATURE_PX, MAX_LINE_CURVATURE_PX)
+    tilt_end = np.clip(tilt + rng.uniform(-1.0, 1.0), -MAX_LINE_TILT_DEG, MAX_LINE_TILT_DEG)
+    sagitta_end = np.clip(sagitta + rng.uniform(-0.5, 0.5), -MAX_LINE_CURVATURE_PX,
+                          MAX_LINE_CURVATURE_PX)
+    return {"line_tilt_deg": (float(tilt), float(tilt_end)),
+            "line_curvature_px": (float(sagitta), float(sagitta_end))}
+
+
 CATEGORIES = ("grooves", "lamps", "low S/N", "few lines", "wide priors", "axis/direction",
               "detector size", "approximate", "transmission", "grism", "binned")
 
@@ -247,12 +293,14 @@ def usable_lines(arc: SimulatedArc) -> int:
     return int(good.sum())
 
 
-def simulate_case(index: int, base_seed: int) -> tuple[Case, InstrumentProfile, SimulatedArc, int]:
+def simulate_case(index: int, base_seed: int, *,
+                  long_slit: bool = False) -> tuple[Case, InstrumentProfile, SimulatedArc, int]:
     """Draw and simulate until the frame has enough usable lines (few-line cases: 5-8)."""
     for attempt in range(60):
-        case = draw_case(index, base_seed, attempt)
+        case = draw_case(index, base_seed, attempt, long_slit=long_slit)
         profile = profile_from_dict(case.profile_dict, source=f"<case {index}>")
-        seed = int(np.random.default_rng([base_seed, index, attempt, 1]).integers(2**31))
+        key = [base_seed, index, attempt, 1] + ([_LONG_SLIT_STREAM] if long_slit else [])
+        seed = int(np.random.default_rng(key).integers(2**31))
         try:
             arc = simulate_arc(profile, seed=seed, **case.sim)
         except ValueError:
@@ -286,14 +334,30 @@ def _tags(case: Case, arc: SimulatedArc, profile: InstrumentProfile,
     return tuple(sorted(tags))
 
 
-def run_case(args: tuple[int, int, str]) -> Outcome:
-    """Simulate, write, calibrate and score one case."""
-    index, base_seed, folder = args
-    case, profile, arc, seed = simulate_case(index, base_seed)
+def slit_errors(solution, arc: SimulatedArc) -> tuple[float, float]:
+    """RMS and largest error (px) over the whole illuminated slit: x over the identified lines'
+    range, y over the rows lit to at least half the maximum (NaN for a one-row frame)."""
+    if arc.data.ndim != 2 or arc.slit_rows[1] - arc.slit_rows[0] < 2:
+        return math.nan, math.nan
+    lo, hi = solution.covered_range_px
+    x = np.linspace(lo, hi, 200)[np.newaxis, :]
+    y = np.arange(*arc.slit_rows, dtype=float)[:, np.newaxis]
+    error = ((solution.wavelength(x, y) - arc.true_wavelength(x, y))
+             / np.abs(arc.truth.dispersion(x)))
+    return float(np.sqrt(np.mean(error ** 2))), float(np.max(np.abs(error)))
+
+
+def run_case(args: tuple) -> Outcome:
+    """Simulate, write, calibrate and score one case (``args``: index, base seed, folder, and
+    optionally True for a long-slit case and the index it is shown with)."""
+    index, base_seed, folder = args[:3]
+    long_slit = len(args) > 3 and bool(args[3])
+    shown = args[4] if len(args) > 4 else index
+    case, profile, arc, seed = simulate_case(index, base_seed, long_slit=long_slit)
     n_lines = usable_lines(arc)
-    path = arc.write(Path(folder) / f"case{index:04d}.fits", overwrite=True)
+    path = arc.write(Path(folder) / f"case{shown:04d}.fits", overwrite=True)
     shape = "x".join(str(s) for s in arc.data.shape)
-    common = dict(index=index, seed=seed, grating=case.grating, lamps=case.lamps,
+    common = dict(index=shown, seed=seed, grating=case.grating, lamps=case.lamps,
                   snr=case.sim["peak_snr"], n_lines=n_lines, shape=shape,
                   tags=_tags(case, arc, profile, n_lines))
     start = time.perf_counter()
@@ -314,10 +378,12 @@ def run_case(args: tuple[int, int, str]) -> Outcome:
     lo, hi = solution.covered_range_px
     x = np.linspace(lo, hi, 500)
     error = (solution.wavelength(x) - arc.true_wavelength(x)) / np.abs(arc.truth.dispersion(x))
+    slit_rms, slit_max = slit_errors(solution, arc)
     outcome = Outcome(**common, verdict=solution.status, max_err=float(np.max(np.abs(error))),
                       rms_err=float(np.sqrt(np.mean(error ** 2))),
                       coverage=float((hi - lo) / arc.truth.n_pixels), seconds=seconds,
-                      note="; ".join(solution.reasons)[:200])
+                      note="; ".join(solution.reasons)[:200], slit_rms_err=slit_rms,
+                      slit_max_err=slit_max)
     return outcome if outcome.success else _with_rows(outcome, arc, profile)
 
 
@@ -337,13 +403,15 @@ def _fmt(value: float, digits: int = 3) -> str:
 
 def print_table(outcomes: list[Outcome]) -> None:
     print(f"{'case':>4} {'seed':>10} {'grating':>7} {'lamps':>7} {'S/N':>6} {'lines':>5} "
-          f"{'frame':>10} {'verdict':>8} {'max px':>7} {'rms px':>7} {'cover':>5} "
-          f"{'time s':>6}  note")
+          f"{'frame':>10} {'verdict':>8} {'max px':>7} {'rms px':>7} {'slit rms':>8} "
+          f"{'cover':>5} {'time s':>6}  note")
     for o in outcomes:
         mark = "" if o.success else ("  <-- WRONG OK" if o.wrong_ok else "  <-- miss")
+        long = " (long slit)" if LONG_SLIT in o.tags else ""
         print(f"{o.index:>4} {o.seed:>10} {o.grating:>7} {o.lamps:>7} {o.snr:>6.0f} {o.n_lines:>5} "
               f"{o.shape:>10} {o.verdict:>8} {_fmt(o.max_err):>7} {_fmt(o.rms_err, 4):>7} "
-              f"{o.coverage:>5.2f} {o.seconds:>6.2f}  {o.note}{mark}")
+              f"{_fmt(o.slit_rms_err, 4):>8} {o.coverage:>5.2f} {o.seconds:>6.2f}  "
+              f"{o.note}{long}{mark}")
 
 
 def _line(label: str, group: list[Outcome]) -> str:
@@ -353,6 +421,15 @@ def _line(label: str, group: list[Outcome]) -> str:
     rms = [o.rms_err for o in group if o.success]
     med = _fmt(float(np.median(rms)), 4) if rms else "-"
     return f"  {label:<26} {n:>4} {ok:>5} {100.0 * ok / n:>7.1f}% {wrong:>6} {med:>9}"
+
+
+def _slit_figure(label: str, group: list[Outcome]) -> str:
+    values = [o.slit_rms_err for o in group if o.verdict in ("ok", "suspect")
+              and np.isfinite(o.slit_rms_err)]
+    if not values:
+        return f"RMS error over the whole illuminated slit, {label}: no frames"
+    return (f"RMS error over the whole illuminated slit, {label}: median {np.median(values):.4f} px, "
+            f"max {np.max(values):.4f} px over {len(values)} frames   [target <= {SLIT_TARGET_PX} px]")
 
 
 def print_summary(outcomes: list[Outcome], wall: float) -> None:
@@ -373,6 +450,12 @@ def print_summary(outcomes: list[Outcome], wall: float) -> None:
     if bright:
         print(f"median RMS error, successful frames with peak S/N > 100: "
               f"{np.median(bright):.4f} px over {len(bright)} frames   [target <= 0.03 px]")
+    long = [o for o in outcomes if LONG_SLIT in o.tags]
+    if long:
+        print(_slit_figure(f"long-slit frames (tilt <= {MAX_LINE_TILT_DEG:g} deg, curvature "
+                           f"<= {MAX_LINE_CURVATURE_PX:g} px; not failed)", long))
+    print(_slit_figure("frames with straight lines (not failed)",
+                       [o for o in outcomes if LONG_SLIT not in o.tags]))
     print()
     print(f"  {'category':<26} {'n':>4} {'succ':>5} {'rate':>8} {'wrongok':>6} {'med rms':>9}")
     for label in sorted({t for o in outcomes for t in o.tags}):
@@ -385,11 +468,15 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=2025, help="base seed (default 2025)")
     parser.add_argument("--quick", action="store_true", help="36 frames, for a smoke run")
     parser.add_argument("--workers", type=int, default=1, help="worker processes (1 or 2)")
+    parser.add_argument("--long-slit", type=int, default=None,
+                        help="long-slit frames added after the others (default 24; --quick 8)")
     args = parser.parse_args(argv)
     n = 36 if args.quick else args.n
+    n_long = args.long_slit if args.long_slit is not None else (8 if args.quick else 24)
     start = time.perf_counter()
     with tempfile.TemporaryDirectory(prefix="wavecal-eval-") as folder:
         jobs = [(i, args.seed, folder) for i in range(n)]
+        jobs += [(i, args.seed, folder, True, n + i) for i in range(n_long)]
         if args.workers > 1:
             with ProcessPoolExecutor(max_workers=min(args.workers, 2)) as pool:
                 outcomes = list(pool.map(run_case, jobs))
