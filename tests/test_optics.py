@@ -9,7 +9,7 @@ Sources named beside the check values:
   by WCSLIB inside astropy.wcs): the reflection-grating worked example (§2) and the MARS grism
   check values (§1, WCSLIB's ``tspc.c`` case of Paper III Fig. 5).
 * astropy.wcs itself, run live: a ``-GRI``/``-GRA`` header built from a :class:`GratingModel`
-  must give the same wavelength as the model at every pixel.
+  by :func:`wavecal.wcs.grating_header` must give the same wavelength as the model at every pixel.
 """
 from __future__ import annotations
 
@@ -30,51 +30,7 @@ from wavecal.optics import (
     resolving_power,
     wavelength_from_angles,
 )
-
-# --------------------------------------------------------------------------------------------
-# Helper: FITS WCS Paper III header for a GratingModel (moves to wavecal/wcs.py in a later issue)
-# --------------------------------------------------------------------------------------------
-
-#: CUNIT1 value -> size of 1 nm in that unit.
-_PER_NM = {"Angstrom": 10.0, "nm": 1.0, "m": 1e-9}
-
-
-def _grating_wcs_header(model: GratingModel, *, ctype: str = "WAVE-GRI",
-                        cunit: str = "Angstrom", reference_pixel: float | None = None,
-                        ) -> fits.Header:
-    """A 1-D ``-GRI``/``-GRA`` header equivalent to a distortion-free ``model``.
-
-    Follows fits-wcs-grating.md §1 "Spectrograph → header": with the reference pixel ``p`` (0-based,
-    default the camera-axis pixel), β_r = β(p), θ = β_c + τ − β_r, L = f cos τ and
-    ``CDELT = direction · pix · cos β_r · cos²θ / (L t)``. PV1_0 and PV1_4 are per metre whatever
-    CUNIT1 says; CRPIX1 is 1-based.
-    """
-    assert not model.distortion, "-GRI has no distortion terms"
-    p = model.axis_pixel if reference_pixel is None else float(reference_pixel)
-    alpha, beta_c = model.angles
-    beta_r = float(model.beta(p))
-    theta = beta_c + model.tilt_deg - beta_r
-    grism = model.mount == "grism"
-    slope_per_nm = model.prism_index_slope_per_nm if grism else 0.0
-    lam_r_nm = float(model.wavelength(p))
-    n_r = (model.prism_index + slope_per_nm * (lam_r_nm - model.prism_reference_nm)) if grism else 1.0
-    grooves_per_m = model.grooves_per_mm * 1e3
-    slope_per_m = slope_per_nm * 1e9
-    t_per_m = grooves_per_m * model.order - slope_per_m * np.sin(np.radians(alpha))
-    length_m = model.focal_length_mm * np.cos(np.radians(model.tilt_deg)) * 1e-3
-    cdelt_m = (model.direction * model.pixel_mm * 1e-3 * np.cos(np.radians(beta_r))
-               * np.cos(np.radians(theta)) ** 2 / (length_m * t_per_m))
-    h = fits.Header()
-    h["NAXIS"] = 1
-    h["NAXIS1"] = model.n_pixels
-    h["CTYPE1"] = ctype
-    h["CUNIT1"] = cunit
-    h["CRPIX1"] = p + 1.0
-    h["CRVAL1"] = lam_r_nm * _PER_NM[cunit]
-    h["CDELT1"] = cdelt_m * 1e9 * _PER_NM[cunit]
-    for i, value in enumerate([grooves_per_m, model.order, alpha, n_r, slope_per_m, 0.0, theta]):
-        h[f"PV1_{i}"] = value  # G [1/m], m, alpha [deg], n_r, dn/dlambda [1/m], eps [deg], theta [deg]
-    return h
+from wavecal.wcs import grating_header
 
 
 def _wcs_wavelength_nm(header: fits.Header, x) -> np.ndarray:
@@ -228,7 +184,7 @@ def test_worked_example_matches_published_range_and_header():
     lam = WORKED.wavelength(np.array([0.0, 4095.0])) * 10.0
     assert lam[0] == pytest.approx(4662.5156, abs=5e-5)
     assert lam[1] == pytest.approx(6351.1087, abs=5e-5)
-    h = _grating_wcs_header(WORKED)
+    h = grating_header(WORKED)
     assert h["CRPIX1"] == 2048.5
     assert h["CRVAL1"] == pytest.approx(5506.1014924892015, rel=1e-13)
     assert h["CDELT1"] == pytest.approx(0.41451226995013873, rel=1e-13)
@@ -264,7 +220,7 @@ VARIANTS = dict(_variants())
 def test_model_agrees_with_astropy_wcs(name, ctype, cunit, where):
     model = VARIANTS[name]
     ref = {"axis": None, "first": 0.0, "late": 0.73 * model.n_pixels}[where]
-    h = _grating_wcs_header(model, ctype=ctype, cunit=cunit, reference_pixel=ref)
+    h = grating_header(model, ctype=ctype, cunit=cunit, reference_pixel=ref)
     x = np.arange(model.n_pixels, dtype=float)
     lam_model = model.wavelength(x)
     lam_wcs = _wcs_wavelength_nm(h, x)
@@ -279,7 +235,7 @@ def test_model_agrees_with_astropy_wcs(name, ctype, cunit, where):
 
 def test_cdelt_is_astropy_derivative_at_reference_pixel():
     # fits-wcs-grating.md §1: CDELT is the exact d(lambda)/dp at CRPIX; also GratingModel.dispersion.
-    h = _grating_wcs_header(WORKED, cunit="nm")
+    h = grating_header(WORKED, cunit="nm")
     lo, hi = _wcs_wavelength_nm(h, WORKED.axis_pixel + np.array([-1e-3, 1e-3]))
     assert (hi - lo) / 2e-3 == pytest.approx(h["CDELT1"], rel=1e-8)
     assert WORKED.dispersion(WORKED.axis_pixel) == pytest.approx(h["CDELT1"], rel=1e-9)
@@ -340,7 +296,7 @@ def test_mars_grism_as_grating_model(pixel_mm):
     np.testing.assert_allclose(model.wavelength(x), _wcs_wavelength_nm(_mars_header(), x),
                                rtol=1e-9, atol=0)
     # ... and our header builder gives back the published keywords.
-    h = _grating_wcs_header(model, ctype="AWAV-GRA")
+    h = grating_header(model, ctype="AWAV-GRA")
     for key, value in MARS_HEADER.items():
         if isinstance(value, str):
             assert h[key] == value
@@ -353,7 +309,7 @@ def test_mars_grism_as_grating_model(pixel_mm):
 def test_wcs_header_pv_units_are_per_metre():
     # fits-wcs-grating.md §5.3: PV1_0 given per mm instead of per metre is silently wrong (up to
     # 12.5 px in the worked example). Our builder must not fall into it: a per-mm PV1_0 disagrees.
-    h = _grating_wcs_header(WORKED)
+    h = grating_header(WORKED)
     x = np.arange(WORKED.n_pixels, dtype=float)
     good = _wcs_wavelength_nm(h, x)
     h["PV1_0"] = WORKED.grooves_per_mm

@@ -1,0 +1,695 @@
+"""Applying a solution to a frame: a new, wavelength-calibrated FITS file.
+
+:func:`apply_solution` reads a solution file and a frame (a 2-D long-slit image or an extracted
+1-D spectrum) and writes a new FITS file whose header describes every pixel's wavelength
+(:mod:`wavecal.wcs`), optionally resampled onto a linear, log-λ or user grid
+(:mod:`wavecal.resample`). The input file is read once into memory, read-only, and never
+modified; the output is written atomically. :func:`calibrate_image` does the same in memory.
+
+Output layout
+-------------
+======  ==========  ===========================================================================
+HDU     EXTNAME     content
+======  ==========  ===========================================================================
+0       (primary)   the data (as read, or resampled: counts per bin), the input's header without
+                    its old WCS, the new WCS, provenance keywords ``WC*`` and HISTORY cards
+1       VARIANCE    variance of the data (propagated when resampled); only if the input had one
+2       FLAGS       uint8 bit mask: 1 wavelength outside the range covered by identified lines
+                    (extrapolated), 2 bin not wholly covered by the input, 4 a bad (non-finite)
+                    input pixel contributes
+3       WAVE-TAB    the lookup table of a ``-TAB`` WCS (only then)
+======  ==========  ===========================================================================
+
+Every image HDU carries the same WCS.
+"""
+from __future__ import annotations
+
+import argparse
+import hashlib
+import io
+import math
+import os
+import re
+import sys
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from astropy.io import fits
+from astropy.time import Time
+
+from . import __version__
+from ._atomic import atomic_path
+from .errors import FrameError, SolutionFileError, WavecalError
+from .resample import (
+    GRID_KINDS,
+    WavelengthGrid,
+    linear_grid,
+    log_grid,
+    resample,
+    user_grid,
+)
+from .solution import load_solution
+from .wcs import AIRVAC_WAVECAL, SpectralWCS, grid_wcs, image_geometry, solution_wcs
+
+__all__ = [
+    "FLAG_EXTRAPOLATED",
+    "FLAG_NO_DATA",
+    "FLAG_BAD_INPUT",
+    "ApplyResult",
+    "calibrate_image",
+    "default_grid",
+    "apply_solution",
+    "output_path_for",
+    "add_apply_arguments",
+    "run_apply_command",
+]
+
+#: FLAGS bit: the wavelength lies outside the range covered by identified lines (extrapolated).
+FLAG_EXTRAPOLATED = 1
+#: FLAGS bit: a resampled bin is not wholly covered by the input pixels.
+FLAG_NO_DATA = 2
+#: FLAGS bit: a bad (non-finite) input pixel contributes.
+FLAG_BAD_INPUT = 4
+_FLAG_TEXT = ((FLAG_EXTRAPOLATED, "extrapolated: outside the lines' range"),
+              (FLAG_NO_DATA, "bin not wholly covered by the input"),
+              (FLAG_BAD_INPUT, "a non-finite input pixel contributes"))
+
+_STRUCTURAL = re.compile(
+    r"^(SIMPLE|BITPIX|NAXIS\d*|EXTEND|PCOUNT|GCOUNT|XTENSION|GROUPS|BZERO|BSCALE|BLANK|CHECKSUM|"
+    r"DATASUM|EXTNAME|EXTVER|EXTLEVEL|INHERIT|Z\w*|T(FIELDS|TYPE\d+|FORM\d+|DIM\d+))$")
+_WCS_KEY = re.compile(
+    r"^(WCSAXES|WCSNAME|CTYPE\d+|CUNIT\d+|CRPIX\d+|CRVAL\d+|CDELT\d+|CROTA\d+|CNAME\d+|CRDER\d+|"
+    r"CSYER\d+|PC\d+_\d+|CD\d+_\d+|PV\d+_\d+|PS\d+_\d+|LONPOLE|LATPOLE|RESTFRQ|RESTWAV|SPECSYS|"
+    r"SSYSOBS|VELOSYS|MJDREF|MJD-OBS)[A-Z]?$")
+#: Keywords this module writes (removed from an input header that already has them).
+_OWN_KEYS = frozenset({"WCMEDIUM", "WCAIRVAC", "WCALGOR", "WCMAXERR", "WCRESAMP", "WCSOLSTA",
+                       "WCCOVLO", "WCCOVHI", "WCLAMLO", "WCLAMHI", "WCORIGX", "WCVERS", "WCSOLFIL",
+                       "WCSOLSHA", "WCINFIL", "WCFLAG1", "WCFLAG2", "WCFLAG4"})
+
+
+@dataclass(frozen=True)
+class ApplyResult:
+    """What :func:`apply_solution` wrote.
+
+    Attributes
+    ----------
+    output : Path
+    frame : Path
+    solution : Path
+    solution_sha256 : str
+    status : str
+        The solution's verdict.
+    algorithm, ctype, medium, conversion : str
+        The WCS written (see :class:`~wavecal.wcs.SpectralWCS`).
+    max_error_px : float
+        Largest disagreement of the header with the solution over every pixel (NaN for a
+        resampled grid, whose WCS is exact).
+    resampled : str
+        ``"none"`` or the grid kind.
+    shape : tuple of int
+        Shape of the written data.
+    n_extrapolated : int
+        Output pixels flagged :data:`FLAG_EXTRAPOLATED`.
+    """
+
+    output: Path
+    frame: Path
+    solution: Path
+    solution_sha256: str
+    status: str
+    algorithm: str
+    ctype: str
+    medium: str
+    conversion: str
+    max_error_px: float
+    resampled: str
+    shape: tuple[int, ...]
+    n_extrapolated: int
+
+    def summary(self) -> dict[str, Any]:
+        """A JSON-safe dictionary."""
+        out = {k: getattr(self, k) for k in self.__dataclass_fields__}
+        for k in ("output", "frame", "solution"):
+            out[k] = str(out[k])
+        out["shape"] = list(self.shape)
+        out["max_error_px"] = None if math.isnan(self.max_error_px) else self.max_error_px
+        return out
+
+
+# ------------------------------------------------------------------------------------------------
+# In memory
+# ------------------------------------------------------------------------------------------------
+
+def default_grid(solution: Any, shape: tuple[int, ...], kind: str, *, medium: str | None = None,
+                 origin: tuple[int, int] = (0, 0), start_nm: float | None = None,
+                 stop_nm: float | None = None, step: float | None = None,
+                 n_bins: int | None = None) -> WavelengthGrid:
+    """A linear or log grid for an image, with defaults taken from the solution.
+
+    The default range runs from the shortest to the longest wavelength of any pixel edge of the
+    image; the default number of bins is the number of pixels along the dispersion (used when
+    ``step`` is not given). ``step`` is in nm for a linear grid and in km/s for a log grid.
+    """
+    medium = medium or solution.medium
+    axis, x0, y0 = image_geometry(solution, shape, origin)
+    edges = _pixel_edges(solution, shape, axis, x0, y0, medium)
+    return _grid_over(edges, kind, int(shape[axis]), start_nm=start_nm, stop_nm=stop_nm,
+                      step=step, n_bins=n_bins)
+
+
+def _grid_over(edges: np.ndarray, kind: str, n_pixels: int, *, start_nm: float | None = None,
+               stop_nm: float | None = None, step: float | None = None,
+               n_bins: int | None = None) -> WavelengthGrid:
+    """:func:`default_grid` from the wavelengths of the image's pixel edges."""
+    if kind not in ("linear", "log"):
+        msg = f"a default grid is 'linear' or 'log', got {kind!r}"
+        raise ValueError(msg)
+    lo = float(np.min(edges)) if start_nm is None else float(start_nm)
+    hi = float(np.max(edges)) if stop_nm is None else float(stop_nm)
+    bins = None if step is not None else (n_bins or n_pixels)
+    if kind == "linear":
+        return linear_grid(lo, hi, step_nm=step, n_bins=bins)
+    return log_grid(lo, hi, velocity_step_kms=step, n_bins=bins)
+
+
+def _pixel_edges(solution: Any, shape: tuple[int, ...], axis: int, x0: float, y0: float,
+                 medium: str) -> np.ndarray:
+    """Wavelength (nm) of every pixel edge along the dispersion: shape (rows or 1, n + 1)."""
+    n = int(shape[axis])
+    x = x0 + np.arange(n + 1, dtype=float) - 0.5
+    if len(shape) == 2 and getattr(solution, "slit", None) is not None:
+        y = y0 + np.arange(int(shape[1 - axis]), dtype=float)
+        lam = solution.wavelength(x[np.newaxis, :], y[:, np.newaxis], medium=medium)
+    else:
+        lam = solution.wavelength(x, medium=medium)
+    return np.atleast_2d(np.asarray(lam, dtype=float))
+
+
+def calibrate_image(solution: Any, data: np.ndarray, *, header: fits.Header | None = None,
+                    variance: np.ndarray | None = None, medium: str | None = None,
+                    grid: WavelengthGrid | str | None = None,
+                    grid_options: dict[str, Any] | None = None, origin: tuple[int, int] = (0, 0),
+                    provenance: fits.Header | None = None) -> fits.HDUList:
+    """The calibrated HDUs (layout in the module docstring) for an image held in memory.
+
+    Parameters
+    ----------
+    solution : Solution
+        The wavelength solution (it must have a model).
+    data : ndarray, shape (N,) or (rows, columns)
+        The frame; for 2-D the dispersion runs along ``solution.dispersion_axis``.
+    header : astropy.io.fits.Header, optional
+        The frame's header; copied without its structural and WCS keywords.
+    variance : ndarray, optional
+        Variance of ``data``, same shape.
+    medium : {"air", "vacuum"}, optional
+        Medium of the output wavelengths; default the solution's.
+    grid : WavelengthGrid or {"linear", "log"}, optional
+        Resample onto this grid (in ``medium``), or onto a :func:`default_grid` of that kind
+        made with ``grid_options``; default: keep the pixels, WCS only.
+    grid_options : dict, optional
+        ``start_nm``, ``stop_nm``, ``step``, ``n_bins`` of a default grid.
+    origin : tuple of int
+        ``(row, column)`` of the raw frame held by ``data``'s first pixel (for a spectrum, the
+        entry along the solution's dispersion axis; see :func:`wavecal.wcs.image_geometry`).
+    provenance : astropy.io.fits.Header, optional
+        Extra cards (HISTORY, keywords) for the primary header.
+
+    Returns
+    -------
+    astropy.io.fits.HDUList
+
+    Raises
+    ------
+    ValueError
+        On a failed solution, an image that is not 1-D or 2-D, a variance of another shape, or
+        an image the solution gives no monotonic wavelength scale for.
+    """
+    return _calibrated(solution, data, header=header, variance=variance, medium=medium, grid=grid,
+                       grid_options=grid_options, origin=origin, provenance=provenance)[0]
+
+
+def _calibrated(solution: Any, data: np.ndarray, *, header: fits.Header | None,
+                variance: np.ndarray | None, medium: str | None,
+                grid: WavelengthGrid | str | None, grid_options: dict[str, Any] | None,
+                origin: tuple[int, int], provenance: fits.Header | None,
+                ) -> tuple[fits.HDUList, SpectralWCS]:
+    data = np.asarray(data)
+    while data.ndim > 2 and data.shape[0] == 1:
+        data = data[0]
+    if data.ndim not in (1, 2) or data.size == 0:
+        msg = f"image of shape {data.shape} is neither 1-D nor 2-D"
+        raise ValueError(msg)
+    if variance is not None:
+        if np.size(variance) != data.size:
+            msg = f"the variance image of shape {np.shape(variance)} does not match the data {data.shape}"
+            raise ValueError(msg)
+        variance = np.asarray(variance).reshape(data.shape)
+    if solution.model is None:
+        msg = "this solution failed; it has no wavelength scale to apply"
+        raise ValueError(msg)
+    medium = medium or solution.medium
+    axis, x0, y0 = image_geometry(solution, data.shape, origin)
+    lo, hi = solution.covered_range_px
+    # rows along the slit (as a column), when the wavelength depends on them
+    y_rows = (y0 + np.arange(data.shape[1 - axis], dtype=float))[:, np.newaxis] if (
+        data.ndim == 2 and getattr(solution, "slit", None) is not None) else None
+    if grid is None:
+        wcs = solution_wcs(solution, data.shape, medium=medium, origin=origin)
+        out_data, out_var = data, variance
+        x = x0 + np.arange(data.shape[axis], dtype=float)
+        outside = np.atleast_2d(_extrapolated(solution, x[np.newaxis, :], y_rows))
+        flags = np.where(outside, FLAG_EXTRAPOLATED, 0).astype(np.uint8)
+        flags = flags[0] if data.ndim == 1 else np.broadcast_to(
+            flags if axis == 1 else flags.T, data.shape).copy()
+        bad = ~np.isfinite(data) if data.dtype.kind == "f" else np.zeros(data.shape, bool)
+        if variance is not None:
+            bad |= ~np.isfinite(variance)
+        flags[bad] |= FLAG_BAD_INPUT
+    else:
+        conversion = "none" if medium == solution.medium else AIRVAC_WAVECAL
+        edges = _pixel_edges(solution, data.shape, axis, x0, y0, medium)
+        if isinstance(grid, str):
+            grid = _grid_over(edges, grid, int(data.shape[axis]), **(grid_options or {}))
+        rows = np.moveaxis(np.atleast_2d(data), axis if data.ndim == 2 else 1, -1)
+        rows_var = None if variance is None else np.moveaxis(
+            np.atleast_2d(variance), axis if data.ndim == 2 else 1, -1)
+        res = resample(rows, edges, grid, variance=rows_var)
+        outside = _outside_lines(solution, grid, medium, y_rows, lo, hi)
+        flags = np.where(np.broadcast_to(outside, res.flux.shape), FLAG_EXTRAPOLATED,
+                         0).astype(np.uint8)
+        flags[res.coverage < 1.0 - 1e-9] |= FLAG_NO_DATA
+        flags[res.bad] |= FLAG_BAD_INPUT
+        dtype = np.result_type(data.dtype, np.float32)
+        out_data = _restore(res.flux, data.ndim, axis).astype(dtype)
+        out_var = None if res.variance is None else _restore(res.variance, data.ndim, axis).astype(dtype)
+        flags = _restore(flags, data.ndim, axis)
+        wcs = grid_wcs(grid, medium=medium, ndim=data.ndim, spectral_axis=data.ndim - axis
+                       if data.ndim == 2 else 1, first_row=y0, conversion=conversion)
+    hdul = _hdus(out_data, out_var, flags, wcs, header, provenance, solution, grid, (x0, lo, hi),
+                 medium)
+    return hdul, wcs
+
+
+def _extrapolated(solution: Any, x: np.ndarray, y: np.ndarray | None) -> np.ndarray:
+    """``solution.extrapolated`` at raw pixels ``x`` (on rows ``y`` when λ depends on them)."""
+    if y is None:
+        return np.asarray(solution.extrapolated(x), dtype=bool)
+    return np.asarray(solution.extrapolated(x, y), dtype=bool)
+
+
+def _outside_lines(solution: Any, grid: WavelengthGrid, medium: str, y_rows: np.ndarray | None,
+                   lo: float, hi: float) -> np.ndarray:
+    """Resampled bins reaching beyond the wavelengths the identified lines span: shape (R or 1, M).
+
+    The lines span the same wavelengths on every row, those of the covered pixel range on the
+    reference row; with a slit model, rows the lines were not traced over are flagged whole
+    (``solution.extrapolated`` at the middle of the covered range on each row).
+    """
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return np.ones((1, grid.size), dtype=bool)
+    trusted = np.sort(np.asarray(solution.wavelength(np.array([lo, hi]), medium=medium), dtype=float))
+    outside = ((grid.edges[:-1] < trusted[0]) | (grid.edges[1:] > trusted[1]))[np.newaxis, :]
+    if y_rows is not None:
+        outside = outside | _extrapolated(solution, np.full(y_rows.shape, 0.5 * (lo + hi)), y_rows)
+    return outside
+
+
+def _restore(rows: np.ndarray, ndim: int, axis: int) -> np.ndarray:
+    """Undo the (rows, dispersion) arrangement used for resampling."""
+    return rows[0] if ndim == 1 else np.moveaxis(rows, -1, axis)
+
+
+def _clean_header(header: fits.Header | None) -> fits.Header:
+    """The input's header without structural, WCS and our own keywords.
+
+    ``MJD-OBS`` is added from ``DATE-OBS`` when missing: it is a WCS keyword, and without it
+    astropy.wcs warns on every read that it derived the value itself.
+    """
+    out = fits.Header()
+    if header is None:
+        return out
+    for card in header.cards:
+        key = card.keyword
+        if _STRUCTURAL.match(key) or _WCS_KEY.match(key) or key in _OWN_KEYS:
+            continue
+        out.append(card, end=True)
+    if "DATE-OBS" in out and "MJD-OBS" not in out:
+        with warnings.catch_warnings():
+            # a date beyond the leap-second table only makes erfa doubt the UTC seconds of
+            # that day, far below what an MJD in days carries
+            warnings.simplefilter("ignore")
+            try:
+                mjd = Time(str(out["DATE-OBS"]), scale="utc").mjd
+            except (ValueError, TypeError):
+                return out
+        out.insert("DATE-OBS", ("MJD-OBS", float(mjd), "[d] from DATE-OBS"), after=True)
+    return out
+
+
+def _hdus(data: np.ndarray, variance: np.ndarray | None, flags: np.ndarray, wcs: SpectralWCS,
+          header: fits.Header | None, provenance: fits.Header | None, solution: Any,
+          grid: WavelengthGrid | None, covered: tuple[float, float, float], medium: str) -> fits.HDUList:
+    x0, lo, hi = covered
+    info = fits.Header()
+    info["WCMEDIUM"] = (medium, "medium of the wavelengths (nm)")
+    info["WCAIRVAC"] = (wcs.conversion, "air/vacuum conversion")
+    info["WCALGOR"] = (wcs.algorithm, "wavelength WCS algorithm")
+    if math.isfinite(wcs.max_error_px):
+        info["WCMAXERR"] = (float(f"{wcs.max_error_px:.3g}"), "[px] max |WCS - solution|, every pixel")
+    info["WCRESAMP"] = ("none" if grid is None else grid.kind, "resampled onto a grid?")
+    info["WCSOLSTA"] = (solution.status, "verdict of the solution")
+    for key, value, what in (("WCCOVLO", lo, "first"), ("WCCOVHI", hi, "last")):
+        if math.isfinite(value):
+            info[key] = (float(value), f"{what} raw px (0-based) covered by lines")
+    if all(math.isfinite(v) for v in (lo, hi)):
+        lam = np.asarray(solution.wavelength(np.array([lo, hi]), medium=medium), dtype=float)
+        info["WCLAMLO"] = (float(np.min(lam)), "[nm] trusted range: shortest")
+        info["WCLAMHI"] = (float(np.max(lam)), "[nm] trusted range: longest")
+    info["WCORIGX"] = (x0, "raw px (0-based) of the first pixel along disp.")
+    primary = fits.PrimaryHDU(data)
+    primary.header.extend(_clean_header(header), end=True)
+    primary.header.extend(wcs.header, end=True, update=True)
+    primary.header.extend(info, end=True, update=True)
+    if provenance is not None:
+        primary.header.extend(provenance, end=True)
+    hdus: list[Any] = [primary]
+    if variance is not None:
+        hdus.append(fits.ImageHDU(variance, header=wcs.header.copy(), name="VARIANCE"))
+    flag_hdu = fits.ImageHDU(flags.astype(np.uint8), header=wcs.header.copy(), name="FLAGS")
+    for bit, text in _FLAG_TEXT:
+        flag_hdu.header[f"WCFLAG{bit}"] = (text, f"meaning of bit {bit}")
+    hdus.append(flag_hdu)
+    if wcs.table is not None:
+        hdus.append(wcs.table)
+    return fits.HDUList(hdus)
+
+
+# ------------------------------------------------------------------------------------------------
+# Files
+# ------------------------------------------------------------------------------------------------
+
+def _sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def _read_bytes(path: Path, what: str, error: type[WavecalError]) -> bytes:
+    try:
+        return path.read_bytes()
+    except OSError as exc:
+        msg = f"{path}: cannot read {what}: {exc.strerror}"
+        raise error(msg) from None
+
+
+def _image_index(path: Path, hdul: fits.HDUList, which: int | str | None) -> int:
+    def is_image(hdu: Any) -> bool:
+        if not isinstance(hdu, (fits.PrimaryHDU, fits.ImageHDU, fits.CompImageHDU)) or not hdu.shape:
+            return False
+        shape = tuple(int(n) for n in hdu.shape)
+        while len(shape) > 2 and shape[0] == 1:
+            shape = shape[1:]
+        return len(shape) in (1, 2) and min(shape) > 0
+
+    if which is not None:
+        try:
+            index = hdul.index_of(which)
+            if not 0 <= index < len(hdul):
+                raise IndexError(index)
+        except (KeyError, IndexError):
+            msg = f"{path}: has no HDU {which!r} (HDUs: {[h.name for h in hdul]})"
+            raise FrameError(msg) from None
+        if not is_image(hdul[index]):
+            msg = f"{path}: HDU {which!r} holds no 1-D or 2-D image"
+            raise FrameError(msg)
+        return index
+    for index, hdu in enumerate(hdul):
+        if is_image(hdu):
+            return index
+    msg = f"{path}: no HDU holds a 1-D or 2-D image"
+    raise FrameError(msg)
+
+
+def _read_frame(path: Path, raw: bytes, hdu: int | str | None, variance_hdu: int | str | None):
+    """(data, header, variance or None) from the file's bytes (nothing is written anywhere)."""
+    try:
+        with fits.open(io.BytesIO(raw), mode="readonly", memmap=False) as hdul:
+            index = _image_index(path, hdul, hdu)
+            data = np.array(hdul[index].data, copy=True)
+            header = hdul[index].header.copy()
+            if index != 0:
+                for card in hdul[0].header.cards:
+                    if card.keyword not in header and not _STRUCTURAL.match(card.keyword):
+                        header.append(card)
+            names = [h.name for h in hdul]
+            which = variance_hdu if variance_hdu is not None else (
+                "VARIANCE" if "VARIANCE" in names and index != names.index("VARIANCE") else None)
+            variance = None
+            if which is not None:
+                v_index = _image_index(path, hdul, which)
+                variance = np.array(hdul[v_index].data, copy=True)
+    except FrameError:
+        raise
+    except (OSError, ValueError, TypeError, fits.VerifyError) as exc:
+        msg = f"{path}: cannot read FITS file: {exc}"
+        raise FrameError(msg) from None
+    while data.ndim > 2 and data.shape[0] == 1:
+        data = data[0]
+    if variance is not None and variance.size != data.size:
+        msg = f"{path}: variance HDU {which!r} of shape {variance.shape} does not match the data {data.shape}"
+        raise FrameError(msg)
+    return data, header, None if variance is None else variance.reshape(data.shape)
+
+
+def _same_file(a: Path, b: Path) -> bool:
+    try:
+        return a.exists() and b.exists() and os.path.samefile(a, b)
+    except OSError:
+        return False
+
+
+def apply_solution(solution_path: str | Path, frame_path: str | Path, output_path: str | Path, *,
+                   medium: str | None = None, grid: WavelengthGrid | str | None = None,
+                   grid_options: dict[str, Any] | None = None, hdu: int | str | None = None,
+                   variance_hdu: int | str | None = None,
+                   origin: tuple[int, int] = (0, 0)) -> ApplyResult:
+    """Write a wavelength-calibrated copy of a frame.
+
+    Parameters
+    ----------
+    solution_path : str or Path
+        A solution file (``*.solution.json``).
+    frame_path : str or Path
+        The FITS frame: a 2-D long-slit image (dispersion along the solution's
+        ``dispersion_axis``) or a 1-D spectrum. Read once, read-only; never modified.
+    output_path : str or Path
+        The new FITS file (replaced atomically if it exists; never the input).
+    medium : {"air", "vacuum"}, optional
+        Medium of the output wavelengths; default the solution's.
+    grid : WavelengthGrid or {"linear", "log"}, optional
+        Resample onto this grid; a kind name makes a :func:`default_grid` with ``grid_options``
+        (``start_nm``, ``stop_nm``, ``step``, ``n_bins``). Default: no resampling.
+    hdu, variance_hdu : int or str, optional
+        HDU of the image (default: the first 1-D or 2-D image) and of its variance (default: an
+        HDU named ``VARIANCE`` if there is one).
+    origin : tuple of int
+        ``(row, column)`` of the raw arc frame's pixel grid held by the frame's first pixel
+        (non-zero when the frame was trimmed differently from the raw arc).
+
+    Returns
+    -------
+    ApplyResult
+
+    Raises
+    ------
+    SolutionFileError
+        If the solution file cannot be read or holds a failed solution.
+    FrameError
+        If the frame cannot be read, has no suitable image, the solution gives no wavelength
+        scale over it, or the output would replace an input file.
+    """
+    solution_path, frame_path, output_path = Path(solution_path), Path(frame_path), Path(output_path)
+    solution_bytes = _read_bytes(solution_path, "solution file", SolutionFileError)
+    solution = load_solution(solution_path)
+    if solution.model is None:
+        msg = f"{solution_path}: the solution failed ({'; '.join(solution.reasons)}); nothing to apply"
+        raise SolutionFileError(msg)
+    if not frame_path.is_file():
+        msg = f"{frame_path}: file not found"
+        raise FrameError(msg)
+    for other in (frame_path, solution_path):
+        if _same_file(output_path, other) or output_path.resolve() == other.resolve():
+            msg = f"{output_path}: the output would replace the input file {other}; choose another name"
+            raise FrameError(msg)
+    frame_bytes = _read_bytes(frame_path, "frame", FrameError)
+    data, header, variance = _read_frame(frame_path, frame_bytes, hdu, variance_hdu)
+    medium = medium or solution.medium
+    solution_sha = _sha256(solution_bytes)
+    provenance = fits.Header()
+    provenance["WCVERS"] = (__version__, "wavecal version")
+    provenance["WCSOLFIL"] = (solution_path.name, "solution file")
+    provenance["WCSOLSHA"] = solution_sha  # 64 hex digits leave no room for a comment
+    provenance["WCINFIL"] = (frame_path.name, "input frame")
+    for line in (f"wavecal {__version__} apply: wavelength calibration",
+                 f"solution file: {solution_path.name}", f"sha256 {solution_sha}",
+                 f"input frame: {frame_path.name}", f"sha256 {_sha256(frame_bytes)}"):
+        provenance.add_history(line)
+    try:
+        hdul, wcs = _calibrated(solution, data, header=header, variance=variance, medium=medium,
+                                grid=grid, grid_options=grid_options, origin=origin,
+                                provenance=provenance)
+    except ValueError as exc:
+        msg = f"{frame_path}: cannot apply {solution_path.name}: {exc}"
+        raise FrameError(msg) from None
+    with atomic_path(output_path) as tmp:
+        hdul.writeto(tmp, overwrite=True, checksum=True)
+    return ApplyResult(
+        output=output_path, frame=frame_path, solution=solution_path, solution_sha256=solution_sha,
+        status=solution.status, algorithm=wcs.algorithm, ctype=wcs.ctype, medium=wcs.medium,
+        conversion=wcs.conversion, max_error_px=wcs.max_error_px,
+        resampled=hdul[0].header["WCRESAMP"], shape=tuple(hdul[0].data.shape),
+        n_extrapolated=int(np.count_nonzero(hdul["FLAGS"].data & FLAG_EXTRAPOLATED)))
+
+
+def output_path_for(frame: Path, out: Path, n_frames: int) -> Path:
+    """Output file for ``frame``: ``out`` itself if it names a FITS file (one frame), else
+    ``out/<frame name without .fits/.fz>.wcal.fits``."""
+    if out.suffix.lower() in (".fits", ".fit", ".fts") and n_frames == 1:
+        return out
+    name = frame.name
+    for suffix in (".fz", ".gz", ".fits", ".fit", ".fts"):
+        if name.lower().endswith(suffix):
+            name = name[: -len(suffix)]
+    return out / f"{name}.wcal.fits"
+
+
+# ------------------------------------------------------------------------------------------------
+# Command line
+# ------------------------------------------------------------------------------------------------
+
+def _hdu_arg(text: str) -> int | str:
+    return int(text) if text.lstrip("-").isdigit() else text
+
+
+def _origin_arg(text: str) -> tuple[int, int]:
+    try:
+        row, col = (int(v) for v in text.split(","))
+    except ValueError:
+        msg = f"origin must be ROW,COLUMN (0-based raw-frame pixel), got {text!r}"
+        raise argparse.ArgumentTypeError(msg) from None
+    return row, col
+
+
+def add_apply_arguments(parser: argparse.ArgumentParser) -> None:
+    """Options of ``wavecal apply SOLUTION FRAME [FRAME ...]``."""
+    parser.add_argument("solution", type=Path, help="solution file (*.solution.json)")
+    parser.add_argument("frames", nargs="+", type=Path,
+                        help="FITS frame(s): 2-D long-slit images or 1-D spectra")
+    parser.add_argument("-o", "--out", type=Path, default=Path("wavecal-calibrated"),
+                        help="output folder, or a .fits file for a single frame "
+                             "(default: %(default)s; files are named <frame>.wcal.fits)")
+    parser.add_argument("--medium", choices=("air", "vacuum"),
+                        help="medium of the output wavelengths (default: the solution's)")
+    parser.add_argument("--resample", choices=("none",) + GRID_KINDS, default="none",
+                        help="keep the pixels and write the WCS only (default), or resample "
+                             "onto a linear, log-wavelength or user grid (flux-conserving)")
+    grid = parser.add_argument_group("grid (with --resample)")
+    grid.add_argument("--start", type=float, dest="grid_start", metavar="NM",
+                      help="first bin edge in nm (default: shortest wavelength of the frame)")
+    grid.add_argument("--stop", type=float, dest="grid_stop", metavar="NM",
+                      help="last bin edge in nm (default: longest wavelength of the frame)")
+    grid.add_argument("--step", type=float, dest="grid_step", metavar="STEP",
+                      help="bin width: nm for linear, km/s for log (default: from --bins)")
+    grid.add_argument("--bins", type=int, dest="grid_bins", metavar="N",
+                      help="number of bins (default: pixels along the dispersion)")
+    grid.add_argument("--grid-file", type=Path, dest="grid_file", metavar="FILE",
+                      help="text file of bin edges in nm, increasing (for --resample user)")
+    parser.add_argument("--hdu", type=_hdu_arg, help="HDU of the image (default: first image)")
+    parser.add_argument("--variance-hdu", type=_hdu_arg, dest="variance_hdu", metavar="HDU",
+                        help="HDU of the variance (default: an HDU named VARIANCE, if any)")
+    parser.add_argument("--origin", type=_origin_arg, default=(0, 0), metavar="ROW,COLUMN",
+                        help="ROW,COLUMN of the raw arc frame at the frame's first pixel "
+                             "(default: 0,0)")
+
+
+#: Grid options: argparse destination -> option name.
+_GRID_OPTIONS = {"grid_start": "--start", "grid_stop": "--stop", "grid_step": "--step",
+                 "grid_bins": "--bins", "grid_file": "--grid-file"}
+
+
+class _UsageError(ValueError):
+    """Options that contradict each other (exit code 2, like argparse's own errors)."""
+
+
+def _grid_from_args(args: argparse.Namespace) -> tuple[WavelengthGrid | str | None, dict[str, Any]]:
+    kind = getattr(args, "resample", "none")
+    allowed = {"none": (), "user": ("grid_file",)}.get(
+        kind, ("grid_start", "grid_stop", "grid_step", "grid_bins"))
+    wrong = [option for dest, option in _GRID_OPTIONS.items()
+             if getattr(args, dest, None) is not None and dest not in allowed]
+    if wrong:
+        msg = f"{', '.join(wrong)} cannot be used with --resample {kind}"
+        raise _UsageError(msg)
+    if kind == "none":
+        return None, {}
+    if kind == "user":
+        path = getattr(args, "grid_file", None)
+        if path is None:
+            msg = "--resample user needs --grid-file"
+            raise _UsageError(msg)
+        try:
+            edges = np.loadtxt(path, dtype=float, comments="#", ndmin=1).ravel()
+            return user_grid(edges), {}
+        except (OSError, ValueError) as exc:
+            msg = f"{path}: not a usable grid file (bin edges in nm, increasing): {exc}"
+            raise WavecalError(msg) from None
+    if args.grid_step is not None and args.grid_bins is not None:
+        msg = "give --step or --bins, not both"
+        raise _UsageError(msg)
+    options = {"start_nm": args.grid_start, "stop_nm": args.grid_stop,
+               "step": args.grid_step, "n_bins": args.grid_bins}
+    return kind, {k: v for k, v in options.items() if v is not None}
+
+
+def run_apply_command(args: argparse.Namespace) -> int:
+    """Run ``wavecal apply``; returns the exit code.
+
+    0: every frame written from an ``ok`` solution; 1: bad input (a file could not be read or
+    written; other frames are still done); 2: contradictory options; 3: written, but the
+    solution is ``suspect``; 4: the solution ``failed`` (nothing written).
+    """
+    try:
+        grid, options = _grid_from_args(args)
+        solution = load_solution(args.solution)
+    except _UsageError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except WavecalError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 1
+    if solution.model is None:
+        print(f"error: {args.solution}: the solution failed ({'; '.join(solution.reasons)}); "
+              "nothing written", file=sys.stderr)
+        return 4
+    code = 0
+    for frame in args.frames:
+        out = output_path_for(frame, args.out, len(args.frames))
+        try:
+            result = apply_solution(args.solution, frame, out, medium=args.medium, grid=grid,
+                                    grid_options=options, hdu=args.hdu,
+                                    variance_hdu=args.variance_hdu, origin=args.origin)
+        except WavecalError as exc:
+            print(f"error: {exc}", file=sys.stderr)
+            code = 1
+            continue
+        error = "" if math.isnan(result.max_error_px) else f", max {result.max_error_px:.2g} px from the solution"
+        total = int(np.prod(result.shape))
+        print(f"{frame} -> {result.output}: {result.ctype} ({result.medium}{error}); "
+              f"resampled: {result.resampled}; {result.n_extrapolated}/{total} pixels extrapolated")
+    if code == 0 and solution.status == "suspect":
+        print(f"warning: {args.solution}: the solution is suspect ({'; '.join(solution.reasons)})",
+              file=sys.stderr)
+        return 3
+    return code
