@@ -201,6 +201,91 @@ def test_resampled_simulated_arc_conserves_counts(arc, tmp_path):
 
 
 # --------------------------------------------------------------------------------------------
+# A simulated arc whose lines tilt and curve along the slit (binned 2x2 to keep it quick)
+# --------------------------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def tilted_arc(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("tilted")
+    profile = load_profile("tho_longslit")
+    sim = simulate_arc(profile, seed=4, lamps=("Hg", "Ne", "Ar"), line_tilt_deg=2.0,
+                       line_curvature_px=0.6, binning=2)
+    frame = sim.write(folder / "tilted.fits")
+    solution = calibrate_frame(frame, profile)
+    assert solution.status == "ok" and solution.slit is not None
+    return sim, solution, solution.write(folder / "tilted.solution.json"), frame
+
+
+def isolated_bright_lines(sim, min_snr=100.0, clear_px=8.0):
+    """Listed first-order lines, unsaturated, with no other simulated line within ``clear_px``."""
+    lines = sim.lines[sim.lines["listed"] & ~sim.lines["ghost"] & ~sim.lines["saturated"]
+                      & (sim.lines["snr"] > min_snr)]
+    others = sim.lines["x_true"].to_numpy()
+    keep = [np.sum(np.abs(others - x) < clear_px) == 1 for x in lines["x_true"]]
+    return lines[keep]
+
+
+def test_tilted_arc_gets_a_two_dimensional_table(tilted_arc, tmp_path):
+    sim, solution, solution_path, frame = tilted_arc
+    result = apply_solution(solution_path, frame, tmp_path / "out.fits")
+    assert result.algorithm == "TAB2D"
+    lam = wcs_wavelength_nm(result.output)
+    shape = sim.data.shape
+    x = np.arange(shape[1], dtype=float)[np.newaxis, :]
+    y = np.arange(shape[0], dtype=float)[:, np.newaxis]
+    assert error_px(lam, solution.wavelength(x, y)) <= TOLERANCE_PX  # every pixel
+    # against the simulation's truth, on the traced rows, where the lines really are
+    rows = np.arange(*sim.slit_rows, dtype=float)[:, np.newaxis]
+    lines = isolated_bright_lines(sim, min_snr=30.0)
+    xs = lines["x_true"].to_numpy()[np.newaxis, :]
+    seen = xs + sim.true_shift(xs, rows)  # where each line lies on each row
+    with fits.open(result.output) as hdul:
+        w = WCS(hdul[0].header, hdul)
+        world = w.wcs_pix2world(seen.ravel(), np.broadcast_to(rows, seen.shape).ravel(), 0)[0]
+    truth = sim.true_wavelength(seen, rows)
+    dispersion = np.abs(sim.truth.dispersion(xs))
+    header_err = np.abs(world.reshape(seen.shape) - truth) / dispersion
+    solution_err = np.abs(solution.wavelength(seen, rows) - truth) / dispersion
+    assert np.all(header_err <= solution_err + TOLERANCE_PX)
+    assert np.max(header_err) < 0.1
+    with fits.open(result.output) as hdul:
+        flags = hdul["FLAGS"].data
+    np.testing.assert_array_equal(flags & FLAG_EXTRAPOLATED > 0, expected_extrapolated(solution, shape))
+
+
+def test_tilted_arc_is_straightened_by_resampling(tilted_arc, tmp_path):
+    # The lines tilt by 2 degrees along the slit: on the raw frame a line's centroid moves by
+    # several pixels between the top and bottom thirds of the slit. After resampling row by row
+    # onto one wavelength grid it must stay put, at the true wavelength.
+    sim, solution, solution_path, frame = tilted_arc
+    result = apply_solution(solution_path, frame, tmp_path / "lin.fits", grid="linear")
+    with fits.open(result.output) as hdul:
+        out = hdul[0].data.astype(np.float64)
+        w = WCS(hdul[0].header)
+        lam = w.wcs_pix2world(np.arange(out.shape[1]), np.zeros(out.shape[1]), 0)[0] * 1e9
+    raw = sim.data.astype(np.float64)
+    rows = np.arange(sim.slit_rows[0] + 2, sim.slit_rows[1] - 2)
+    third = rows.size // 3
+    lines = isolated_bright_lines(sim)
+    assert len(lines) >= 5
+
+    def centroids(image, centre, coords):
+        core = np.arange(centre - 4, centre + 5)
+        wings = np.r_[centre - 15:centre - 6, centre + 7:centre + 16]
+        seg = image[rows][:, core] - np.median(image[rows][:, wings], axis=1, keepdims=True)
+        c = (seg * coords[core]).sum(axis=1) / seg.sum(axis=1)
+        return np.median(c[:third]), np.median(c[-third:]), np.median(c)
+
+    for _, line in lines.iterrows():
+        dispersion = abs(float(sim.truth.dispersion(line["x_true"])))
+        top, bottom, _ = centroids(raw, int(round(line["x_true"])), np.arange(raw.shape[1], dtype=float))
+        assert abs(top - bottom) > 2.0  # pixels: the tilt is there on the raw frame
+        top, bottom, middle = centroids(out, int(np.argmin(np.abs(lam - line["wavelength_nm"]))), lam)
+        assert abs(top - bottom) / dispersion < 0.15
+        assert abs(middle - line["wavelength_nm"]) / dispersion < 0.1
+
+
+# --------------------------------------------------------------------------------------------
 # Constructed solutions and frames
 # --------------------------------------------------------------------------------------------
 

@@ -52,7 +52,14 @@ from .resample import (
     user_grid,
 )
 from .solution import load_solution
-from .wcs import AIRVAC_WAVECAL, SpectralWCS, grid_wcs, image_geometry, solution_wcs
+from .wcs import (
+    AIRVAC_WAVECAL,
+    SpectralWCS,
+    grid_wcs,
+    image_geometry,
+    pixel_wavelengths,
+    solution_wcs,
+)
 
 __all__ = [
     "FLAG_EXTRAPOLATED",
@@ -258,10 +265,10 @@ def _calibrated(solution: Any, data: np.ndarray, *, header: fits.Header | None,
     y_rows = (y0 + np.arange(data.shape[1 - axis], dtype=float))[:, np.newaxis] if (
         data.ndim == 2 and getattr(solution, "slit", None) is not None) else None
     if grid is None:
-        wcs = solution_wcs(solution, data.shape, medium=medium, origin=origin)
+        lam = pixel_wavelengths(solution, data.shape, medium=medium, origin=origin)
+        wcs = solution_wcs(solution, data.shape, medium=medium, origin=origin, wavelengths=lam)
         out_data, out_var = data, variance
-        x = x0 + np.arange(data.shape[axis], dtype=float)
-        outside = np.atleast_2d(_extrapolated(solution, x[np.newaxis, :], y_rows))
+        outside = _outside_lines(solution, lam, medium, y_rows, lo, hi)
         flags = np.where(outside, FLAG_EXTRAPOLATED, 0).astype(np.uint8)
         flags = flags[0] if data.ndim == 1 else np.broadcast_to(
             flags if axis == 1 else flags.T, data.shape).copy()
@@ -278,7 +285,7 @@ def _calibrated(solution: Any, data: np.ndarray, *, header: fits.Header | None,
         rows_var = None if variance is None else np.moveaxis(
             np.atleast_2d(variance), axis if data.ndim == 2 else 1, -1)
         res = resample(rows, edges, grid, variance=rows_var)
-        outside = _outside_lines(solution, grid, medium, y_rows, lo, hi)
+        outside = _outside_lines(solution, grid.edges, medium, y_rows, lo, hi, bins=True)
         flags = np.where(np.broadcast_to(outside, res.flux.shape), FLAG_EXTRAPOLATED,
                          0).astype(np.uint8)
         flags[res.coverage < 1.0 - 1e-9] |= FLAG_NO_DATA
@@ -301,18 +308,25 @@ def _extrapolated(solution: Any, x: np.ndarray, y: np.ndarray | None) -> np.ndar
     return np.asarray(solution.extrapolated(x, y), dtype=bool)
 
 
-def _outside_lines(solution: Any, grid: WavelengthGrid, medium: str, y_rows: np.ndarray | None,
-                   lo: float, hi: float) -> np.ndarray:
-    """Resampled bins reaching beyond the wavelengths the identified lines span: shape (R or 1, M).
+def _outside_lines(solution: Any, wavelengths: np.ndarray, medium: str, y_rows: np.ndarray | None,
+                   lo: float, hi: float, *, bins: bool = False) -> np.ndarray:
+    """Where the wavelengths lie beyond those the identified lines span (extrapolated).
 
-    The lines span the same wavelengths on every row, those of the covered pixel range on the
-    reference row; with a slit model, rows the lines were not traced over are flagged whole
-    (``solution.extrapolated`` at the middle of the covered range on each row).
+    ``wavelengths`` are pixel wavelengths, shape (R or 1, N), or with ``bins`` the M + 1 edges
+    of resampled bins, which are outside when either edge is. The lines span the same
+    wavelengths on every row: those of the covered pixel range on the reference row (this is
+    :meth:`Solution.extrapolated` expressed in wavelength, the solution being monotonic). With a
+    slit model, rows the lines were not traced over are outside whole (``extrapolated`` at the
+    middle of the covered range on each row). Returns shape (R or 1, N or M).
     """
+    shape = (1, wavelengths.size - 1) if bins else np.atleast_2d(wavelengths).shape
     if not (math.isfinite(lo) and math.isfinite(hi)):
-        return np.ones((1, grid.size), dtype=bool)
+        return np.ones(shape, dtype=bool)
     trusted = np.sort(np.asarray(solution.wavelength(np.array([lo, hi]), medium=medium), dtype=float))
-    outside = ((grid.edges[:-1] < trusted[0]) | (grid.edges[1:] > trusted[1]))[np.newaxis, :]
+    if bins:
+        outside = ((wavelengths[:-1] < trusted[0]) | (wavelengths[1:] > trusted[1]))[np.newaxis, :]
+    else:
+        outside = (np.atleast_2d(wavelengths) < trusted[0]) | (np.atleast_2d(wavelengths) > trusted[1])
     if y_rows is not None:
         outside = outside | _extrapolated(solution, np.full(y_rows.shape, 0.5 * (lo + hi)), y_rows)
     return outside

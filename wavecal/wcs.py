@@ -61,6 +61,7 @@ __all__ = [
     "spectral_ctype",
     "spatial_cards",
     "image_geometry",
+    "pixel_wavelengths",
 ]
 
 #: Largest disagreement (pixels) between a grating-algorithm header and the solution, at any
@@ -407,6 +408,21 @@ def _solution_wavelengths(solution: Any, x: np.ndarray, y: np.ndarray | None, me
     return np.broadcast_to(np.asarray(lam, dtype=float), (y.size, x.size))
 
 
+def pixel_wavelengths(solution: Any, shape: tuple[int, ...], *, medium: str | None = None,
+                      origin: tuple[int, int] = (0, 0)) -> np.ndarray:
+    """The solution's wavelengths (nm) at every pixel centre of an image.
+
+    Returns an array of shape (rows, n) with the dispersion along the last axis when the
+    wavelength depends on the row (a 2-D image and a solution with a slit model), else (1, n).
+    """
+    disp, x0, y0 = image_geometry(solution, shape, origin)
+    x = x0 + np.arange(int(shape[disp]), dtype=float)
+    if len(shape) == 2 and getattr(solution, "slit", None) is not None:
+        y = y0 + np.arange(int(shape[1 - disp]), dtype=float)
+        return _solution_wavelengths(solution, x, y, medium or solution.medium)
+    return _solution_wavelengths(solution, x, None, medium or solution.medium)
+
+
 def _check_wavelengths(lam: np.ndarray) -> None:
     d = np.diff(lam, axis=-1)
     if not (np.all(np.isfinite(lam)) and (np.all(d > 0) or np.all(d < 0))):
@@ -443,7 +459,8 @@ def image_geometry(solution: Any, shape: tuple[int, ...],
 def solution_wcs(solution: Any, shape: tuple[int, ...], *, medium: str | None = None,
                  origin: tuple[int, int] = (0, 0),
                  grating_tolerance_px: float = GRATING_TOLERANCE_PX,
-                 table_tolerance_px: float = TABLE_TOLERANCE_PX) -> SpectralWCS:
+                 table_tolerance_px: float = TABLE_TOLERANCE_PX,
+                 wavelengths: np.ndarray | None = None) -> SpectralWCS:
     """The best WCS description of the wavelengths of an image calibrated by ``solution``.
 
     Parameters
@@ -463,6 +480,9 @@ def solution_wcs(solution: Any, shape: tuple[int, ...], *, medium: str | None = 
         :func:`image_geometry`).
     grating_tolerance_px, table_tolerance_px : float
         See :data:`GRATING_TOLERANCE_PX` and :data:`TABLE_TOLERANCE_PX`.
+    wavelengths : ndarray, optional
+        The solution's wavelengths at every pixel centre in ``medium``, as
+        :func:`pixel_wavelengths` gives them (to spare a second evaluation); computed if absent.
 
     Returns
     -------
@@ -491,7 +511,14 @@ def solution_wcs(solution: Any, shape: tuple[int, ...], *, medium: str | None = 
     x = x0 + np.arange(n_disp, dtype=float)
     y = y0 + np.arange(n_rows, dtype=float)
     depends_on_y = two_d and getattr(solution, "slit", None) is not None
-    lam = _solution_wavelengths(solution, x, y if depends_on_y else None, medium)
+    if wavelengths is None:
+        lam = _solution_wavelengths(solution, x, y if depends_on_y else None, medium)
+    else:
+        lam = np.atleast_2d(np.asarray(wavelengths, dtype=float))
+        if lam.shape != (n_rows if depends_on_y else 1, n_disp):
+            msg = (f"wavelengths of shape {lam.shape} do not match the image: expected "
+                   f"{(n_rows if depends_on_y else 1, n_disp)} (see pixel_wavelengths)")
+            raise ValueError(msg)
     _check_wavelengths(lam)
     dispersion = np.abs(np.gradient(lam, axis=-1))
 
