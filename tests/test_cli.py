@@ -76,3 +76,13 @@ def test_plan_command_is_wired(tmp_path, capsys):
     assert code in (EXIT_OK, 3)  # 3: plan made with warnings
     assert "setup plan" in capsys.readouterr().out
     assert len(list(tmp_path.glob("*.plan.json"))) == 1
+
+
+def test_apply_command_is_wired(arc_file, tmp_path):
+    assert main(["solve", str(arc_file), "-p", "tho_longslit", "-o", str(tmp_path)]) == EXIT_OK
+    out = tmp_path / "calibrated"
+    assert main(["apply", str(tmp_path / "arc_01.solution.json"), str(arc_file), "-o", str(out)]) == EXIT_OK
+    written = list(out.glob("*.fits"))
+    assert len(written) == 1
+    with fits.open(written[0]) as hdul:
+        assert hdul[0].header["WCSOLSTA"] == "ok"

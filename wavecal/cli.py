@@ -1,4 +1,4 @@
-"""Command line: ``wavecal solve``, ``demo``, ``show``, ``profiles`` and ``plan``.
+"""Command line: ``wavecal solve``, ``demo``, ``show``, ``profiles``, ``plan`` and ``apply``.
 
 Exit codes (also in the README):
 
@@ -91,7 +91,11 @@ def _parser() -> argparse.ArgumentParser:
 
     sub.add_parser("profiles", help="list the bundled example instrument profiles")
 
+    from .apply import add_apply_arguments
     from .plan_cli import add_plan_arguments
+
+    add_apply_arguments(sub.add_parser(
+        "apply", help="write wavelength-calibrated copies of frames (FITS WCS, optional resampling)"))
 
     add_plan_arguments(sub.add_parser(
         "plan", help="what a grating setting will show: range, orders, filter, lamps, blaze"))
@@ -176,10 +180,11 @@ def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
                         format="%(levelname)s %(name)s: %(message)s")
+    from .apply import run_apply_command
     from .plan_cli import run_plan_command
 
     runners = {"solve": _run_solve, "demo": _run_demo, "show": _run_show, "profiles": _run_profiles,
-               "plan": run_plan_command}
+               "plan": run_plan_command, "apply": run_apply_command}
     try:
         return runners[args.command](args)
     except WavecalError as exc:
