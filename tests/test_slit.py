@@ -13,15 +13,23 @@ is at most 0.05 px.
 """
 from __future__ import annotations
 
+import dataclasses
 import json
+import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # Python 3.10
+    import tomli as tomllib
+
 from wavecal.calibrate import calibrate_frame
+from wavecal.errors import ProfileError
 from wavecal.frames import frame_from_array
-from wavecal.profile import load_profile
+from wavecal.profile import load_profile, profile_from_dict
 from wavecal.simulate import simulate_arc
 from wavecal.slit import MIN_SLIT_ROWS, SlitShift, fit_slit_shift, trace_lines
 from wavecal.solution import SCHEMA_VERSION, load_solution
@@ -81,7 +89,7 @@ def test_simulated_lines_follow_the_stated_tilt_and_curvature():
         for y in np.linspace(sim.slit_rows[0] + 5, sim.slit_rows[1] - 5, 5).astype(int):
             rows = np.arange(y - 2, y + 3)
             centre = np.mean(line.x_true + sim.true_shift(line.x_true, rows))
-            c = int(round(centre))
+            c = round(centre)
             pixels = np.arange(c - 8, c + 9)
             values = data[rows][:, pixels].sum(axis=0)
             assert np.sum(values * pixels) / np.sum(values) == pytest.approx(centre, abs=0.02)
@@ -276,3 +284,29 @@ def test_trace_lines_refuses_too_few_rows():
         trace_lines(frame, [500.0], rows=(100, 100 + MIN_SLIT_ROWS - 1))
     traces = trace_lines(frame, [], rows=(100, 140))
     assert traces.good.size == 0 and fit_slit_shift(traces) is None
+
+
+# -- the profile's slit rows -----------------------------------------------------------------
+def test_profile_slit_rows_override_the_rows_found():
+    # unbinned rows 101-400 of a frame binned 2 x 2: whole binned rows 51 .. 199
+    base = load_profile("tho_longslit")
+    profile = dataclasses.replace(base, detector=dataclasses.replace(base.detector,
+                                                                     slit_rows=(101, 401)))
+    sim = simulate_arc(profile, seed=3, binning=2, line_tilt_deg=1.0)
+    frame = frame_from_array(sim.data, profile, header=sim.header)
+    calibration = calibrate_frame(frame, profile, details=True)
+    assert calibration.spectrum.rows == (51, 200)
+    slit = calibration.solution.slit
+    assert 51 <= slit.rows_covered[0] < slit.rows_covered[1] <= 199
+    x = np.mean(calibration.solution.covered_range_px)
+    assert calibration.solution.extrapolated([x, x], [30.0, 120.0]).tolist() == [True, False]
+
+
+@pytest.mark.parametrize(("value", "message"), [([0, 600], "beyond"), ([300, 200], "empty"),
+                                                ("all", r"\[start, stop\]")])
+def test_profile_refuses_bad_slit_rows(value, message):
+    folder = Path(__file__).parents[1] / "wavecal" / "profiles"
+    data = tomllib.loads((folder / "tho_longslit.toml").read_text())
+    data["detector"]["slit_rows"] = value
+    with pytest.raises(ProfileError, match=message):
+        profile_from_dict(data, source="test.toml")

@@ -26,7 +26,7 @@ from .model_setup import PriorBox, nominal_model, prior_box
 from .optics import GratingModel
 from .peaks import PeakFlag, PeakTable, find_peaks
 from .profile import InstrumentProfile
-from .slit import SlitMeasurement, SlitShift, measure_slit
+from .slit import SlitMeasurement, SlitShift, measure_slit, profile_slit_rows
 from .solution import SPEED_OF_LIGHT_KMS, Solution
 from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 
@@ -104,7 +104,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     grating_angle_deg : float, optional
         Physical grating angle; default: from the header through the profile.
     rows : (int, int), optional
-        Slit rows to collapse; default: the illuminated rows, found from the frame.
+        Slit rows to collapse (indices along the frame's spatial axis); default: the profile's
+        ``[detector] slit_rows``, else the illuminated rows, found from the frame.
     min_snr : float
         Detection threshold of the peak finder (peak signal-to-noise).
     free_grooves : bool
@@ -133,6 +134,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     nominal = nominal_model(profile, grating_angle_deg, frame.binning)
     box = prior_box(profile, nominal)
 
+    if rows is None:
+        rows = profile_slit_rows(frame, profile)
     spectrum = extract_spectrum(frame, rows=rows)
     peaks = find_peaks(spectrum, min_snr=min_snr)
     slit = None

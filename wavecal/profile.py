@@ -136,6 +136,10 @@ class DetectorSpec:
         towards larger diffraction angles).
     hdu : int or str or None
         HDU holding the image; None means the first HDU with image data.
+    slit_rows : tuple of int or None
+        ``[start, stop)`` pixels along the spatial axis (the axis other than
+        ``dispersion_axis``) of the raw frame that the slit illuminates; None (the default)
+        means they are found from each frame.
     """
 
     pixel_size_um: float
@@ -151,6 +155,7 @@ class DetectorSpec:
     axis_pixel: float | None = None
     tilt_deg: float = 0.0
     hdu: int | str | None = None
+    slit_rows: tuple[int, int] | None = None
 
     @property
     def dispersion_range(self) -> tuple[int, int]:
@@ -378,6 +383,18 @@ def _region(value: Any, name: str, source: str) -> tuple[int, int, int, int] | N
     return region
 
 
+def _span(value: Any, name: str, source: str) -> tuple[int, int]:
+    try:
+        start, stop = (int(v) for v in value)
+    except (TypeError, ValueError):
+        msg = f"{source}: [detector] {name} must be [start, stop]"
+        raise ProfileError(msg) from None
+    if not 0 <= start < stop:
+        msg = f"{source}: [detector] {name} [{start}, {stop}] is empty or negative"
+        raise ProfileError(msg)
+    return (start, stop)
+
+
 def _build(table: dict[str, Any], cls: type, section: str, source: str) -> Any:
     names = set(cls.__dataclass_fields__)
     unknown = set(table) - names
@@ -426,9 +443,16 @@ def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>")
         raise ProfileError(msg)
     det["overscan"] = _region(det.get("overscan"), "overscan", src)
     det["trim"] = _region(det.get("trim"), "trim", src)
+    if det.get("slit_rows") is not None:
+        det["slit_rows"] = _span(det["slit_rows"], "slit_rows", src)
     detector = _build(det, DetectorSpec, "detector", src)
     if detector.dispersion_axis not in (0, 1) or detector.wavelength_increases not in (1, -1):
         msg = f"{src}: [detector] dispersion_axis must be 0 or 1 and wavelength_increases +1 or -1"
+        raise ProfileError(msg)
+    if detector.slit_rows is not None and detector.slit_rows[1] > detector.shape[
+            1 - detector.dispersion_axis]:
+        msg = (f"{src}: [detector] slit_rows {list(detector.slit_rows)} run beyond the "
+               f"{detector.shape[1 - detector.dispersion_axis]} pixels of the spatial axis")
         raise ProfileError(msg)
     _positive(detector.pixel_size_um, "[detector] pixel_size_um", src)
     _positive(detector.gain_e_per_adu, "[detector] gain_e_per_adu", src)

@@ -51,15 +51,16 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from numpy.polynomial import legendre
-from scipy.ndimage import median_filter
 from scipy.special import ndtr
 
+from .errors import FrameError
 from .extract import Spectrum, extract_spectrum
 from .frames import Frame
 from .peaks import PeakFlag, PeakTable, find_peaks
+from .profile import InstrumentProfile
 
-__all__ = ["LineTraces", "SlitShift", "SlitMeasurement", "trace_lines", "fit_slit_shift",
-           "measure_slit", "MIN_SLIT_ROWS", "RECTIFY_SPREAD_PX"]
+__all__ = ["MIN_SLIT_ROWS", "RECTIFY_SPREAD_PX", "LineTraces", "SlitMeasurement", "SlitShift",
+           "fit_slit_shift", "measure_slit", "profile_slit_rows", "trace_lines"]
 
 #: Fewest illuminated rows for which the slit is traced.
 MIN_SLIT_ROWS = 8
@@ -339,9 +340,35 @@ def _pair(value) -> tuple[float, float]:
 # Tracing
 # ------------------------------------------------------------------------------------------------
 
+def profile_slit_rows(frame: Frame, profile: InstrumentProfile) -> tuple[int, int] | None:
+    """The profile's ``[detector] slit_rows`` as ``[start, stop)`` indices along the frame's
+    spatial axis (binned, trimmed: as ``rows`` of :func:`~wavecal.extract.extract_spectrum`),
+    or None when the profile gives none or the frame has a single row.
+
+    Only the whole binned pixels inside the unbinned range count; the range is cut to the
+    trimmed frame.
+
+    Raises
+    ------
+    FrameError
+        Naming the frame, when none of the rows lies in the trimmed frame.
+    """
+    span = profile.detector.slit_rows
+    axis = 1 - frame.dispersion_axis
+    if span is None or frame.data.shape[axis] == 1:
+        return None
+    binning, origin = frame.binning[axis], frame.origin[axis]
+    start = max(-(-span[0] // binning) - origin, 0)
+    stop = min(span[1] // binning - origin, frame.data.shape[axis])
+    if stop <= start:
+        msg = (f"{frame.path or 'frame'}: the profile's slit_rows {list(span)} (unbinned) lie "
+               f"outside the frame's {frame.data.shape[axis]} trimmed rows")
+        raise FrameError(msg)
+    return int(start), int(stop)
+
+
 def trace_lines(frame: Frame, positions, *, rows: tuple[int, int] | None = None,
-                fwhm: float = 3.0, band_rows: int | None = None, neighbours=None,
-                shift: SlitShift | None = None) -> LineTraces:
+                fwhm: float = 3.0, band_rows: int | None = None, neighbours=None) -> LineTraces:
     """Follow arc lines through the slit, measuring their centres in bands of rows.
 
     Parameters
@@ -361,9 +388,6 @@ def trace_lines(frame: Frame, positions, *, rows: tuple[int, int] | None = None,
     neighbours : array_like, optional
         Pixel ``x`` of other lines, bright or faint: a line with a neighbour (or another of
         ``positions``) closer than ``2.5 fwhm + 2`` pixels is not traced.
-    shift : SlitShift, optional
-        A model of the shift already known (``positions`` then are reference-row positions):
-        every band is measured at once where it predicts the line, instead of stage by stage.
 
     Returns
     -------
@@ -401,15 +425,8 @@ def trace_lines(frame: Frame, positions, *, rows: tuple[int, int] | None = None,
     state = _TraceState(view, bands, x, x_err, good)
     lines = np.flatnonzero(traced)
     y_raw = y_index + view.y0
-    if lines.size and shift is not None:
-        predicted = x_start[lines, None] + shift.shift_grid(x_start[lines], y_raw).T
-        band_fwhm = fwhm
-        state.measure(lines, np.arange(n_bands), predicted - view.x0, 1.0 + 0.5 * band_fwhm,
-                      band_fwhm)
-    elif lines.size:
-        band_fwhm = _follow(state, lines, index[lines], y_index, reference, fwhm, view)
-    else:
-        band_fwhm = math.nan
+    band_fwhm = _follow(state, lines, index[lines], y_index, reference, fwhm, view) \
+        if lines.size else math.nan
     edges = np.stack([bands[:, 0], bands.max(axis=1)], axis=1) + view.y0
     return LineTraces(x_start=x_start, traced=traced, y=y_raw, band_edges=edges, x=x + view.x0,
                       x_err=x_err, good=good, reference_row=reference + view.y0,
@@ -557,8 +574,8 @@ class _TraceState:
         li, bi, centre = li[ok], bi[ok], centre[ok]
         if li.size == 0:
             return
-        half = int(math.ceil(1.5 * fwhm)) + 1
-        reach = int(math.ceil(search))
+        half = math.ceil(1.5 * fwhm) + 1
+        reach = math.ceil(search)
         width = half + reach + 1
         first = np.round(centre).astype(int) - width
         cols = first[:, None] + np.arange(2 * width + 1)
@@ -775,7 +792,8 @@ def _fit_model(line_id, x, sigma, t, start, domain, degree_x, degree_y, n_lines,
     keep = np.ones(x.size, bool) if keep is None else keep
     w = np.where(keep, 1.0 / sigma ** 2, 0.0)
     lo, hi = domain
-    reference = np.asarray(start, dtype=float).copy()
+    start = np.asarray(start, dtype=float)
+    reference = start.copy()
     powers = t[:, None] ** np.arange(1, degree_y + 1)
     weight_sum = np.bincount(line_id, w, n_lines)
     has = weight_sum > 0
@@ -795,11 +813,11 @@ def _fit_model(line_id, x, sigma, t, start, domain, degree_x, degree_y, n_lines,
         else:
             solution = np.zeros(0)
         coef = solution.reshape(degree_x + 1, degree_y)
-        reference = np.where(has, x_mean - b_mean @ solution, np.nan)
+        reference = np.where(has, x_mean - b_mean @ solution, start)
     model = reference[line_id] + basis @ solution
     residual = x - model
-    return _ModelFit(coefficients=coef, reference=reference, residual=residual,
-                     chi2=float(np.sum(w * residual ** 2)))
+    return _ModelFit(coefficients=coef, reference=np.where(has, reference, np.nan),
+                     residual=residual, chi2=float(np.sum(w * residual ** 2)))
 
 
 def fit_slit_shift(traces: LineTraces, *, max_degree_x: int = _MAX_DEGREE_X,
@@ -890,11 +908,11 @@ def measure_slit(frame: Frame, spectrum: Spectrum, peaks: PeakTable, *, min_snr:
     shift model fitted. When the shift varies by more than :data:`RECTIFY_SPREAD_PX` over
     those rows, the lines are smeared in the plain sum: the rows are straightened (each
     resampled by linear interpolation at ``x + Δ(x, y)``, variance and masks alike), summed
-    again with :func:`~wavecal.extract.extract_spectrum`, the peaks found again with
-    :func:`~wavecal.peaks.find_peaks`, and the lines traced once more with the first model's
-    predictions. Finally each peak centre is moved by minus the mean shift over the summed
-    rows, weighted by their share of the light (the part not already removed by
-    straightening), so that it is the line's position on the reference row.
+    again with :func:`~wavecal.extract.extract_spectrum` and the peaks found again with
+    :func:`~wavecal.peaks.find_peaks`: they lie at the lines' reference-row positions.
+    Otherwise each peak centre of the plain sum is moved by minus the mean shift over the
+    summed rows, weighted by their share of the light, so that it is the line's position on
+    the reference row.
 
     Parameters
     ----------
@@ -905,8 +923,8 @@ def measure_slit(frame: Frame, spectrum: Spectrum, peaks: PeakTable, *, min_snr:
     peaks : PeakTable
         The peaks of ``spectrum``.
     min_snr : float
-        Detection threshold of the peak finder in the central band and when the peaks are
-        found again.
+        Detection threshold of the peak finder in the central band and in the straightened
+        frame.
     band_rows : int, optional
         Rows per band (see :func:`trace_lines`).
 
@@ -935,23 +953,15 @@ def measure_slit(frame: Frame, spectrum: Spectrum, peaks: PeakTable, *, min_snr:
     y_rows = np.arange(traces.rows[0], traces.rows[1] + 1)
     grid = shift.shift_grid(x_grid, y_rows)
     if np.max(np.ptp(grid, axis=0)) <= RECTIFY_SPREAD_PX:
-        return SlitMeasurement(spectrum, _refer(peaks, shift, None, y_rows, traces.row_weight),
-                               shift, traces, False)
+        return SlitMeasurement(spectrum, _refer(peaks, shift, y_rows, traces.row_weight), shift,
+                               traces, False)
     straight = _straightened(frame, shift, start, stop)
-    spectrum2 = dataclasses.replace(extract_spectrum(straight, rows=(0, stop - start)),
+    straight_spectrum = dataclasses.replace(extract_spectrum(straight, rows=(0, stop - start)),
                                     rows=(start, stop))
-    peaks2 = find_peaks(spectrum2, min_snr=min_snr)
-    if len(peaks2) == 0:
+    straight_peaks = find_peaks(straight_spectrum, min_snr=min_snr)
+    if len(straight_peaks) == 0:
         return unchanged
-    fwhm2 = float(peaks2.fwhm_typical) if np.isfinite(peaks2.fwhm_typical) else fwhm
-    traces2 = trace_lines(frame, _candidates(peaks2), rows=(start, stop), fwhm=fwhm2,
-                          band_rows=band_rows, neighbours=peaks2.table["x"].to_numpy(float),
-                          shift=shift)
-    final = fit_slit_shift(traces2)
-    if final is None:
-        final, traces2 = shift, traces
-    return SlitMeasurement(spectrum2, _refer(peaks2, final, shift, y_rows, traces.row_weight),
-                           final, traces2, True)
+    return SlitMeasurement(straight_spectrum, straight_peaks, shift, traces, True)
 
 
 def _candidates(peaks: PeakTable) -> np.ndarray:
@@ -964,15 +974,12 @@ def _candidates(peaks: PeakTable) -> np.ndarray:
     return np.sort(chosen["x"].to_numpy(float))
 
 
-def _refer(peaks: PeakTable, shift: SlitShift, removed: SlitShift | None, y_rows: np.ndarray,
+def _refer(peaks: PeakTable, shift: SlitShift, y_rows: np.ndarray,
            weight: np.ndarray) -> PeakTable:
-    """Peaks with centres moved to the reference row: minus the light-weighted mean over the
-    rows of the shift not already removed by straightening."""
+    """Peaks with centres moved to the reference row: minus the mean shift over the summed rows,
+    each weighted by its share of the light."""
     x = peaks.table["x"].to_numpy(float)
-    left = shift.shift_grid(x, y_rows)
-    if removed is not None:
-        left = left - removed.shift_grid(x, y_rows)
-    mean = weight @ left / np.sum(weight)
+    mean = weight @ shift.shift_grid(x, y_rows) / np.sum(weight)
     return dataclasses.replace(peaks, table=peaks.table.assign(x=x - mean))
 
 

@@ -17,7 +17,7 @@ true model within the priors, simulates the raw frame with
 
 Per frame: the largest and the RMS difference between the solution and the truth, in pixels
 (``(lambda_sol(x) - lambda_true(x)) / |d lambda_true/dx|``) over the range of the identified lines
-(``Solution.covered_range_px``). A frame is a success when the verdict is not ``failed`` and the
+(``Solution.covered_range_px``), along the solution's reference row. A frame is a success when the verdict is not ``failed`` and the
 largest error is below 0.25 px; an ``ok`` verdict on a solution off by more is a *wrong ok*.
 The note of a miss starts with the slit rows the pipeline summed and the rows actually lit (from
 a second run with ``details=True``), since a wrong choice of rows ruins everything after it.
@@ -377,7 +377,9 @@ def run_case(args: tuple) -> Outcome:
                                   note="; ".join(solution.reasons)[:200]), arc, profile)
     lo, hi = solution.covered_range_px
     x = np.linspace(lo, hi, 500)
-    error = (solution.wavelength(x) - arc.true_wavelength(x)) / np.abs(arc.truth.dispersion(x))
+    # along the solution's reference row (the truth's own for a single-row solution)
+    error = ((solution.wavelength(x) - arc.true_wavelength(x, solution.reference_row))
+             / np.abs(arc.truth.dispersion(x)))
     slit_rms, slit_max = slit_errors(solution, arc)
     outcome = Outcome(**common, verdict=solution.status, max_err=float(np.max(np.abs(error))),
                       rms_err=float(np.sqrt(np.mean(error ** 2))),
