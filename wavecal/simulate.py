@@ -139,7 +139,8 @@ class SimulatedArc:
         ``element``, ``order`` (diffraction order), ``x_true`` (0-based raw pixel on the
         reference row of :attr:`line_shape`), ``flux_e``
         (electrons over the whole slit), ``snr`` (expected peak S/N in the sum over the
-        illuminated rows), ``fwhm_px``, ``listed`` (in the shipped line list), ``ghost``
+        illuminated rows of straight lines; a tilted or curved line is spread wider in that
+        sum), ``fwhm_px``, ``listed`` (in the shipped line list), ``ghost``
         (next-order image), ``saturated`` (peak at or above the saturation level).
     profile : InstrumentProfile
         The instrument simulated.
@@ -222,7 +223,8 @@ class SimulatedArc:
         return path
 
     def summary(self) -> dict:
-        """JSON-safe summary: the true and nominal parameters and line counts."""
+        """JSON-safe summary: the true and nominal parameters, line counts and the line shape
+        along the slit."""
         keys = ("grating_angle_deg", "focal_length_mm", "axis_pixel", "tilt_deg")
         lines = self.lines
         return {
@@ -238,6 +240,9 @@ class SimulatedArc:
             "n_unlisted": int((~lines["listed"]).sum()),
             "n_ghosts": int(lines["ghost"].sum()),
             "n_saturated": int(lines["saturated"].sum()),
+            "line_tilt_deg": list(self.line_shape.tilt_deg),
+            "line_curvature_px": list(self.line_shape.curvature_px),
+            "slit_centre_row": float(self.line_shape.reference_row),
         }
 
 

@@ -17,8 +17,8 @@ of the traced rows) lies at ``x + Δ(x, y)`` on row ``y``; ``Δ(x, y_ref) = 0``.
 Method
 ------
 1. **Bands.** The rows are divided into bands of a few rows. In a window around each line,
-   each row's pixels are divided by the row's share of the light, the median over the lines of
-   the band of each row's flux in its window relative to the band's mean (so that a cosmic ray
+   each row's pixels are divided by the row's share of the light: the median over the band's
+   lines of the row's flux in their windows relative to their mean row (so that a cosmic ray
    in one window does not count). A pixel deviating from the median over the band's rows of
    its column by more than five times its noise, plus what a slide of the line by a pixel
    would change, is left out (a cosmic ray or hot pixel), as are bad pixels; the others are
@@ -26,9 +26,10 @@ Method
    rows is the line profile at the band's middle row.
 2. **Centres.** In each band the line is located near its predicted position and its profile
    fitted with a Gaussian integrated over each pixel plus a constant, by weighted least
-   squares (a batched Levenberg-Marquardt iteration; variances from the frame's noise model,
-   times π/2 for the median). A band measurement counts when the fit converged with a
-   signal-to-noise ratio of at least 4 and a sensible width.
+   squares (a batched Levenberg-Marquardt iteration; variances from the frame's noise model of
+   the pixels averaged). A band measurement counts when the fit converged with a
+   signal-to-noise ratio of at least 4, a width between 0.5 px and the window's and a centre
+   within 1.5 px of the brightest point.
 3. **Following.** Bands are measured from the reference row outwards in stages of doubling
    distance; each stage predicts the positions from the model fitted to the earlier ones, so
    that a strongly tilted or curved line is followed with a narrow search window.
