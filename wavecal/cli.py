@@ -81,6 +81,8 @@ def _parser() -> argparse.ArgumentParser:
     solve.add_argument("--min-snr", type=float, default=5.0, help="peak detection threshold (default: %(default)s)")
     solve.add_argument("--fit-grooves", action="store_true", help="also fit the groove density")
     solve.add_argument("--no-plot", action="store_true", help="skip the residual plot")
+    solve.add_argument("--no-slit", action="store_true",
+                       help="do not follow the lines along the slit (one solution for all rows)")
 
     demo = sub.add_parser("demo", help="run the calibration on the bundled demo frames")
     demo.add_argument("-o", "--out", type=Path, default=Path("wavecal-demo-output"),
@@ -112,7 +114,8 @@ def _solve_one(frame: Path, profile, args, out: Path):
                                grating_angle_deg=getattr(args, "grating_angle", None),
                                rows=getattr(args, "rows", None),
                                min_snr=getattr(args, "min_snr", 5.0),
-                               free_grooves=getattr(args, "fit_grooves", False))
+                               free_grooves=getattr(args, "fit_grooves", False),
+                               trace_slit=not getattr(args, "no_slit", False))
     elapsed = time.perf_counter() - start
     products = write_products(solution, out, stem=frame.name, plot=not getattr(args, "no_plot", False))
     print(format_summary(solution))

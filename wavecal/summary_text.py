@@ -46,6 +46,13 @@ def format_summary(solution: Solution) -> str:
     out.append(f"  range     : {lam.min():.3f} – {lam.max():.3f} nm ({solution.medium}), "
                f"{disp:.5f} nm/px at centre")
     out.append(f"  lines span: pixels {lo:.1f} – {hi:.1f} of 0 – {n - 1} (outside: extrapolated)")
+    slit = solution.slit.summary() if getattr(solution, "slit", None) is not None else None
+    if slit is not None and slit.get("degree_y", 0) > 0:
+        first, last = slit["rows_covered"]
+        out.append(f"  slit      : lines shift by up to {slit['max_abs_shift_px']:.2f} px over rows "
+                   f"{first:.0f} – {last:.0f} (reference row {solution.reference_row:.1f}); "
+                   f"degree {slit['degree_x']} along x, {slit['degree_y']} along y; "
+                   f"RMS {slit['rms_px']:.3f} px")
     out.append(f"  residuals : RMS {_fmt(stats.get('rms_px'))} px = {_fmt(stats.get('rms_nm'))} nm = "
                f"{_fmt(stats.get('rms_kms'))} km/s;  reduced chi2 {_fmt(stats.get('redchi'), 3)};  "
                f"distortion degree {stats.get('distortion_degree', 0)}")
