@@ -223,11 +223,19 @@ class SlitShift:
     def shift(self, x, y) -> np.ndarray:
         """``Δ(x, y)``: position on row ``y`` minus position on the reference row (pixels), for
         a line at ``x`` on the reference row (``x`` and ``y`` broadcast together)."""
-        x, y = np.broadcast_arrays(np.asarray(x, dtype=float), np.asarray(y, dtype=float))
+        x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+        shape = np.broadcast_shapes(x.shape, y.shape)
         if self.degree_y == 0:
-            return np.zeros(x.shape)
-        p = legendre.legvander(self._u(x), self.degree_x)
-        return np.einsum("...i,ij,...j->...", p, self.coefficients, self._t_powers(y))
+            return np.zeros(shape)
+        # the y and x factors are formed on the unbroadcast inputs (a column of rows and a row
+        # of pixels stay small) and only their products are broadcast
+        along_y = self._t_powers(y) @ self.coefficients.T
+        along_x = legendre.legvander(self._u(x).ravel(), self.degree_x).reshape(
+            x.shape + (self.degree_x + 1,))
+        out = np.zeros(shape)
+        for k in range(self.degree_x + 1):
+            out += along_y[..., k] * along_x[..., k]
+        return out
 
     def shift_grid(self, x, y) -> np.ndarray:
         """``Δ`` on the grid of the 1-D arrays ``x`` and ``y``: shape ``(len(y), len(x))``."""
