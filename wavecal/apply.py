@@ -43,6 +43,7 @@ from astropy.time import Time
 from . import __version__
 from ._atomic import atomic_path
 from .errors import FrameError, SolutionFileError, WavecalError
+from .frames import image_hdu_index
 from .resample import (
     GRID_KINDS,
     WavelengthGrid,
@@ -418,39 +419,11 @@ def _read_bytes(path: Path, what: str, error: type[WavecalError]) -> bytes:
         raise error(msg) from None
 
 
-def _image_index(path: Path, hdul: fits.HDUList, which: int | str | None) -> int:
-    def is_image(hdu: Any) -> bool:
-        if not isinstance(hdu, (fits.PrimaryHDU, fits.ImageHDU, fits.CompImageHDU)) or not hdu.shape:
-            return False
-        shape = tuple(int(n) for n in hdu.shape)
-        while len(shape) > 2 and shape[0] == 1:
-            shape = shape[1:]
-        return len(shape) in (1, 2) and min(shape) > 0
-
-    if which is not None:
-        try:
-            index = hdul.index_of(which)
-            if not 0 <= index < len(hdul):
-                raise IndexError(index)
-        except (KeyError, IndexError):
-            msg = f"{path}: has no HDU {which!r} (HDUs: {[h.name for h in hdul]})"
-            raise FrameError(msg) from None
-        if not is_image(hdul[index]):
-            msg = f"{path}: HDU {which!r} holds no 1-D or 2-D image"
-            raise FrameError(msg)
-        return index
-    for index, hdu in enumerate(hdul):
-        if is_image(hdu):
-            return index
-    msg = f"{path}: no HDU holds a 1-D or 2-D image"
-    raise FrameError(msg)
-
-
 def _read_frame(path: Path, raw: bytes, hdu: int | str | None, variance_hdu: int | str | None):
     """(data, header, variance or None) from the file's bytes (nothing is written anywhere)."""
     try:
         with fits.open(io.BytesIO(raw), mode="readonly", memmap=False) as hdul:
-            index = _image_index(path, hdul, hdu)
+            index = image_hdu_index(path, hdul, hdu)
             data = np.array(hdul[index].data, copy=True)
             header = hdul[index].header.copy()
             if index != 0:
@@ -462,7 +435,7 @@ def _read_frame(path: Path, raw: bytes, hdu: int | str | None, variance_hdu: int
                 "VARIANCE" if "VARIANCE" in names and index != names.index("VARIANCE") else None)
             variance = None
             if which is not None:
-                v_index = _image_index(path, hdul, which)
+                v_index = image_hdu_index(path, hdul, which)
                 variance = np.array(hdul[v_index].data, copy=True)
     except FrameError:
         raise

@@ -32,7 +32,7 @@ from astropy.io import fits
 from .errors import FrameError
 from .profile import InstrumentProfile
 
-__all__ = ["Frame", "read_frame", "frame_from_array"]
+__all__ = ["image_hdu_index", "Frame", "read_frame", "frame_from_array"]
 
 _log = logging.getLogger(__name__)
 
@@ -199,7 +199,7 @@ def _read_image(path: Path, which: int | str | None,
         with path.open("rb") as fh, fits.open(fh, mode="readonly", memmap=False,
                                               lazy_load_hdus=False) as hdul:
             _raise_if_truncated(path, caught)
-            index = _image_hdu_index(path, hdul, which)
+            index = image_hdu_index(path, hdul, which)
             image = hdul[index]
             try:
                 data = image.data
@@ -234,7 +234,15 @@ def _raise_if_truncated(path: Path, caught: list[warnings.WarningMessage]) -> No
             raise FrameError(msg)
 
 
-def _image_hdu_index(path: Path, hdul: fits.HDUList, which: int | str | None) -> int:
+def image_hdu_index(path: Path, hdul: fits.HDUList, which: int | str | None) -> int:
+    """Index of the HDU holding the image: ``which`` (index or EXTNAME) if given, checked to hold
+    1-D or 2-D image data, else the first HDU that does.
+
+    Raises
+    ------
+    FrameError
+        Naming the file, when there is no such HDU or it holds no image.
+    """
     if which is not None:
         try:
             index = hdul.index_of(which)

@@ -16,7 +16,7 @@ import numpy as np  # noqa: E402
 from ._atomic import atomic_path  # noqa: E402
 from .solution import Solution  # noqa: E402
 
-__all__ = ["residual_figure", "save_residual_plot", "PALETTE"]
+__all__ = ["residual_figure", "save_residual_plot", "save_png", "PALETTE"]
 
 #: Okabe & Ito colour-blind-safe colours.
 PALETTE = {"used": "#0072B2", "rejected": "#D55E00", "blend": "#E69F00", "band": "#56B4E9",
@@ -72,13 +72,17 @@ def residual_figure(solution: Solution):
     return fig
 
 
-def save_residual_plot(solution: Solution, path: str | Path) -> Path:
-    """Write :func:`residual_figure` as a PNG file, atomically."""
+def save_png(fig, path: str | Path) -> Path:
+    """Write a matplotlib figure as a PNG file, atomically, and close the figure."""
     path = Path(path)
-    fig = residual_figure(solution)
     try:
         with atomic_path(path) as tmp:
             fig.savefig(tmp, format="png", dpi=110)
     finally:
         plt.close(fig)
     return path
+
+
+def save_residual_plot(solution: Solution, path: str | Path) -> Path:
+    """Write :func:`residual_figure` as a PNG file, atomically."""
+    return save_png(residual_figure(solution), path)
