@@ -1,0 +1,378 @@
+"""The nightly run: inventory, master bias, arcs, drift, assignment, calibrated science frames,
+summary table and log, resumable and robust to bad files.
+
+Output layout (``out_dir``)::
+
+    inventory.csv        one row per file, from the headers only
+    summary.csv          one row per file: kind, configuration, status, reason, solution used,
+                         RMS, drift, product, whether it was (re)made in this run
+    drift.csv            per configuration: arc, time, shift (px) relative to its first arc
+    night.log            what happened, in plain text
+    calibrations/        master bias frames
+    solutions/           <stem>.solution.json of every arc
+    calibrated/          <stem>.wcal.fits of every science frame
+    manifests/           what each product was made from (for resuming)
+"""
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from .. import __version__
+from .._atomic import atomic_write_text
+from ..errors import FrameError, WavecalError
+from ..profile import InstrumentProfile
+from ..solution import load_solution
+from .assign import POLICIES, ArcPoint, assign
+from .bias import combine_bias, write_master_bias
+from .drift import relative_shift
+from .executors import run_tasks
+from .inventory import FileRecord, Inventory, build_inventory
+from .tasks import arc_task, read_manifest, science_task, sha256_file, write_manifest
+
+__all__ = ["SUMMARY_COLUMNS", "NightResult", "run_night"]
+
+#: Columns of ``summary.csv``.
+SUMMARY_COLUMNS = ("file", "kind", "profile", "configuration", "observation_time", "status",
+                   "reason", "solution_used", "rms_px", "drift_px", "product", "made")
+
+ProgressFn = Callable[[int, int, str], None]
+
+
+@dataclass(frozen=True)
+class NightResult:
+    """What a nightly run did.
+
+    Attributes
+    ----------
+    out_dir : Path
+    inventory : Inventory
+    summary : pandas.DataFrame
+        The content of ``summary.csv`` (:data:`SUMMARY_COLUMNS`).
+    drift : pandas.DataFrame
+        The content of ``drift.csv``.
+    exit_code : int
+        0 all good, 3 something suspect or unclassified, 4 something failed.
+    n_made : int
+        Products (re)made in this run (the others were up to date).
+    elapsed_s : float
+    """
+
+    out_dir: Path
+    inventory: Inventory
+    summary: pd.DataFrame
+    drift: pd.DataFrame
+    exit_code: int
+    n_made: int
+    elapsed_s: float
+
+
+class _Log:
+    def __init__(self, progress: ProgressFn | None) -> None:
+        self.lines: list[str] = []
+        self.progress = progress
+
+    def __call__(self, text: str) -> None:
+        self.lines.append(f"{time.strftime('%Y-%m-%dT%H:%M:%S')} {text}")
+
+
+def _row(rec: FileRecord, **values: Any) -> dict[str, Any]:
+    row = {"file": rec.name, "kind": rec.kind, "profile": rec.profile,
+           "configuration": rec.configuration, "observation_time": rec.observation_time,
+           "status": "", "reason": "", "solution_used": "", "rms_px": math.nan,
+           "drift_px": math.nan, "product": "", "made": False}
+    row.update(values)
+    return row
+
+
+def _file_key(rec: FileRecord) -> dict[str, Any]:
+    return {"input": rec.name, "size": rec.size, "mtime_ns": rec.mtime_ns,
+            "software": __version__}
+
+
+def _up_to_date(product: Path, manifest: Path, key: dict[str, Any], redo: bool
+                ) -> dict[str, Any] | None:
+    if redo or not product.is_file():
+        return None
+    found = read_manifest(manifest)
+    if found is None or found.get("key") != key:
+        return None
+    return found.get("result")
+
+
+def _rel(path: Path | str, out: Path) -> str:
+    return Path(path).relative_to(out).as_posix() if path else ""
+
+
+def _clean_partials(out: Path) -> int:
+    n = 0
+    for p in out.rglob(".*.part"):
+        p.unlink(missing_ok=True)
+        n += 1
+    return n
+
+
+def _master_biases(inv: Inventory, out: Path, redo: bool, log: _Log
+                   ) -> tuple[dict[tuple, Path], list[dict[str, Any]], int]:
+    groups: dict[tuple, list[FileRecord]] = {}
+    for r in inv.of_kind("bias"):
+        groups.setdefault((r.profile, r.binning), []).append(r)
+    masters, rows, made = {}, [], 0
+    for i, ((profile, binning), recs) in enumerate(sorted(groups.items(), key=str), start=1):
+        product = out / "calibrations" / f"master_bias_{i}.fits"
+        manifest = out / "manifests" / f"master_bias_{i}.json"
+        key = {"inputs": [_file_key(r) for r in recs], "software": __version__}
+        result = _up_to_date(product, manifest, key, redo)
+        if result is None:
+            try:
+                master, rejected = combine_bias([r.path for r in recs])
+            except FrameError as exc:
+                rows += [_row(r, status="failed", reason=str(exc)) for r in recs]
+                log(f"master bias {i}: {exc}")
+                continue
+            used = [r.name for r in recs if str(r.path) not in rejected]
+            write_master_bias(master, product, used)
+            result = {"rejected": {Path(k).relative_to(inv.root).as_posix(): v
+                                   for k, v in rejected.items()}}
+            write_manifest(manifest, key, result)
+            made += 1
+            log(f"master bias {i} ({profile}, binning {binning}): {len(used)} frames combined")
+        masters[(profile, binning)] = product
+        rejected = result.get("rejected", {})
+        for r in recs:
+            if r.name in rejected:
+                rows.append(_row(r, status="failed", reason=rejected[r.name]))
+            else:
+                rows.append(_row(r, status="ok", reason=f"combined into {_rel(product, out)}",
+                                 product=_rel(product, out), made=made > 0))
+    return masters, rows, made
+
+
+def _run(fn: Callable[..., dict], jobs: list[tuple[FileRecord, dict]], *, workers: int,
+         scheduler: str | None, progress: ProgressFn | None, what: str
+         ) -> dict[str, dict[str, Any]]:
+    results: dict[str, dict[str, Any]] = {}
+    items = [kw for _, kw in jobs]
+    for done, (i, res) in enumerate(run_tasks(fn, items, workers=workers, scheduler=scheduler),
+                                    start=1):
+        results[jobs[i][0].name] = res
+        if progress is not None:
+            progress(done, len(jobs), f"{what} {jobs[i][0].name}: {res.get('status')}")
+    return results
+
+
+def _arcs(inv: Inventory, out: Path, masters: dict, redo: bool, workers: int,
+          scheduler: str | None, progress: ProgressFn | None, log: _Log
+          ) -> dict[str, dict[str, Any]]:
+    outcome, jobs = {}, []
+    for r in inv.of_kind("arc"):
+        product = out / "solutions" / f"{r.stem}.solution.json"
+        manifest = out / "manifests" / f"{r.stem}.arc.json"
+        bias = masters.get((r.profile, r.binning))
+        key = {**_file_key(r), "task": "arc", "bias": sha256_file(bias)}
+        result = _up_to_date(product, manifest, key, redo)
+        if result is not None:
+            outcome[r.name] = {**result, "made": False}
+            continue
+        jobs.append((r, {"path": str(r.path), "profile": inv.profiles[r.profile],
+                         "bias_path": None if bias is None else str(bias),
+                         "product": str(product), "manifest": str(manifest), "key": key}))
+    log(f"arcs: {len(outcome)} up to date, {len(jobs)} to calibrate")
+    for name, res in _run(arc_task, jobs, workers=workers, scheduler=scheduler,
+                          progress=progress, what="arc").items():
+        outcome[name] = {**res, "made": True}
+        log(f"arc {name}: {res['status']} {res.get('reason', '')}".rstrip())
+    return outcome
+
+
+def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: float, log: _Log
+           ) -> tuple[dict[str, list[ArcPoint]], pd.DataFrame]:
+    points: dict[str, list[ArcPoint]] = {}
+    rows = []
+    for conf in inv.configurations():
+        good = sorted((r for r in inv.of_kind("arc") if r.configuration == conf
+                       and arcs.get(r.name, {}).get("status") in ("ok", "suspect")),
+                      key=lambda r: (r.time_mjd, r.name))
+        if not good:
+            continue
+        sols = {r.name: load_solution(arcs[r.name]["product"]) for r in good}
+        ref = sols[good[0].name]
+        pts = [ArcPoint(r.name, r.time_mjd, relative_shift(sols[r.name], ref)) for r in good]
+        for k, p in enumerate(pts):
+            if 0 < k < len(pts) - 1:
+                a, b = pts[k - 1], pts[k + 1]
+                frac = (p.time_mjd - a.time_mjd) / (b.time_mjd - a.time_mjd) if (
+                    b.time_mjd > a.time_mjd) else 0.5
+                off = p.shift_px - (a.shift_px + frac * (b.shift_px - a.shift_px))
+                if abs(off) > cross_check_px:
+                    res = arcs[p.name]
+                    res["status"] = "suspect"
+                    res["reason"] = "; ".join(filter(None, [
+                        res.get("reason"), f"shift disagrees with the neighbouring arcs by "
+                                           f"{off:+.2f} px"]))
+                    log(f"arc {p.name}: shift disagrees with its neighbours by {off:+.2f} px")
+            rows.append({"configuration": conf, "arc": p.name,
+                         "observation_time": next(r for r in good
+                                                  if r.name == p.name).observation_time,
+                         "shift_px": p.shift_px})
+        points[conf] = pts
+        log(f"drift of {conf}: {len(pts)} arcs, shifts "
+            + ", ".join(f"{p.shift_px:+.3f}" for p in pts) + " px")
+    return points, pd.DataFrame(rows, columns=["configuration", "arc", "observation_time",
+                                               "shift_px"])
+
+
+def run_night(raw_dir: str | Path,
+              profiles: InstrumentProfile | Mapping[str, InstrumentProfile],
+              out_dir: str | Path, *, recursive: bool = False, workers: int = 1,
+              scheduler: str | None = None, policy: str = "nearest",
+              drift_threshold_px: float = 0.05, cross_check_px: float = 0.5,
+              angle_tolerance_deg: float = 0.01, profile_keyword: str = "INSTRUME",
+              extra_keywords: tuple[str, ...] = (), redo: bool = False,
+              progress: ProgressFn | None = None) -> NightResult:
+    """Process a whole night's directory of raw FITS files.
+
+    Parameters
+    ----------
+    raw_dir : str or Path
+        The night's raw files; only read, never modified (it may be read-only).
+    profiles : InstrumentProfile or mapping of str to InstrumentProfile
+        One profile, or several chosen per file by the ``profile_keyword`` header value.
+    out_dir : str or Path
+        Where the products go (layout in the module docstring); created if needed.
+    recursive : bool
+        Also take files from sub-folders of ``raw_dir``.
+    workers : int
+        Local worker processes for the arcs and science frames.
+    scheduler : str, optional
+        Address of a Dask distributed scheduler to run them on instead (optional dependency).
+    policy : {"nearest", "interpolate"}
+        Solution of a science frame: that of the nearest arc in time of its configuration, or,
+        when the bracketing arcs' shifts differ by more than ``drift_threshold_px``, that
+        solution moved by the drift interpolated linearly in time.
+    cross_check_px : float
+        An arc whose shift differs by more than this from the interpolation of its two time
+        neighbours is marked suspect.
+    angle_tolerance_deg, profile_keyword, extra_keywords
+        Grouping into configurations (see :func:`~wavecal.night.inventory.build_inventory`).
+    redo : bool
+        Remake every product even when its manifest says it is up to date.
+    progress : callable, optional
+        ``progress(done, total, message)`` after each task (see
+        :class:`~wavecal.night.progress.Progress`).
+
+    Returns
+    -------
+    NightResult
+        Bad files never raise: each gets a summary row with its reason.
+
+    Raises
+    ------
+    WavecalError
+        When ``raw_dir`` is not a directory or ``out_dir`` is ``raw_dir``.
+    """
+    if policy not in POLICIES:
+        msg = f"policy must be one of {POLICIES}, got {policy!r}"
+        raise ValueError(msg)
+    start = time.monotonic()
+    raw, out = Path(raw_dir), Path(out_dir)
+    if raw.is_dir() and out.exists() and out.resolve() == raw.resolve():
+        msg = f"{out}: the output folder must not be the raw folder"
+        raise WavecalError(msg)
+    out.mkdir(parents=True, exist_ok=True)
+    log = _Log(progress)
+    log(f"wavecal {__version__} night run: {raw} -> {out} (policy {policy}, workers {workers}"
+        + (f", scheduler {scheduler}" if scheduler else "") + ")")
+    if (n := _clean_partials(out)):
+        log(f"removed {n} half-written file(s) left by an interrupted run")
+    inv = build_inventory(raw, profiles, recursive=recursive, profile_keyword=profile_keyword,
+                          angle_tolerance_deg=angle_tolerance_deg,
+                          extra_keywords=extra_keywords, exclude=[out])
+    atomic_write_text(out / "inventory.csv", inv.to_dataframe().to_csv(index=False))
+    log("inventory: " + inv.describe())
+    if progress is not None:
+        progress(0, 1, inv.describe().splitlines()[0])
+
+    masters, rows, made = _master_biases(inv, out, redo, log)
+    arcs = _arcs(inv, out, masters, redo, workers, scheduler, progress, log)
+    points, drift = _drift(inv, arcs, cross_check_px, log)
+    atomic_write_text(out / "drift.csv", drift.to_csv(index=False))
+    shifts = {p.name: p.shift_px for pts in points.values() for p in pts}
+    for r in inv.of_kind("arc"):
+        res = arcs[r.name]
+        rows.append(_row(r, status=res["status"], reason=res.get("reason", ""),
+                         solution_used=_rel(res.get("product", ""), out),
+                         rms_px=res.get("rms_px", math.nan), drift_px=shifts.get(r.name, math.nan),
+                         product=_rel(res.get("product", ""), out), made=res["made"]))
+        made += res["made"] and "product" in res
+
+    jobs, science_rows = [], {}
+    for r in inv.of_kind("science"):
+        choice = assign(r.time_mjd, points.get(r.configuration, ()), policy=policy,
+                        drift_threshold_px=drift_threshold_px)
+        if choice is None:
+            science_rows[r.name] = _row(r, status="failed",
+                                        reason=f"no usable arc of configuration {r.configuration}")
+            continue
+        solution = Path(arcs[choice.arc]["product"])
+        product = out / "calibrated" / f"{r.stem}.wcal.fits"
+        manifest = out / "manifests" / f"{r.stem}.science.json"
+        bias = masters.get((r.profile, r.binning))
+        key = {**_file_key(r), "task": "science", "bias": sha256_file(bias),
+               "solution": sha256_file(solution), "shift_px": round(choice.shift_px, 6)}
+        base = {"solution_used": choice.label, "drift_px": choice.drift_px,
+                "product": _rel(product, out)}
+        result = _up_to_date(product, manifest, key, redo)
+        if result is not None:
+            science_rows[r.name] = _row(r, status=result["status"], reason=result["reason"],
+                                        rms_px=result.get("rms_px"), **base)
+            continue
+        science_rows[r.name] = _row(r, made=True, **base)
+        jobs.append((r, {"path": str(r.path), "profile": inv.profiles[r.profile],
+                         "bias_path": None if bias is None else str(bias),
+                         "solution_path": str(solution), "shift_px": choice.shift_px,
+                         "product": str(product), "manifest": str(manifest), "key": key}))
+    log(f"science: {len(inv.of_kind('science')) - len(jobs)} up to date or unassigned, "
+        f"{len(jobs)} to calibrate")
+    for name, res in _run(science_task, jobs, workers=workers, scheduler=scheduler,
+                          progress=progress, what="science").items():
+        row = science_rows[name]
+        row.update(status=res["status"], reason=res.get("reason", ""),
+                   rms_px=res.get("rms_px", math.nan))
+        if res["status"] == "failed":
+            row["product"] = ""
+        made += res["status"] != "failed"
+        log(f"science {name}: {res['status']} {res.get('reason', '')}".rstrip())
+    rows += list(science_rows.values())
+
+    for r in inv.records:
+        if r.problem:
+            rows.append(_row(r, status="failed", reason=r.problem))
+        elif r.kind == "flat":
+            rows.append(_row(r, status="skipped",
+                             reason="flat field: not used by the wavelength calibration"))
+        elif r.kind in ("other", "unknown"):
+            rows.append(_row(r, status="skipped",
+                             reason=f"frame type {r.kind}: not processed"))
+    order = {r.name: i for i, r in enumerate(inv.records)}
+    summary = pd.DataFrame(sorted(rows, key=lambda row: order[row["file"]]),
+                           columns=list(SUMMARY_COLUMNS))
+    summary["rms_px"] = pd.to_numeric(summary["rms_px"])
+    atomic_write_text(out / "summary.csv", summary.to_csv(index=False))
+    statuses = set(summary["status"])
+    unclassified = bool(((summary["kind"] == "unknown") & (summary["status"] != "failed")).any())
+    exit_code = 4 if "failed" in statuses else 3 if ("suspect" in statuses or unclassified) else 0
+    elapsed = time.monotonic() - start
+    counts = summary["status"].value_counts().to_dict()
+    log(f"done in {elapsed:.1f} s: {len(summary)} files, "
+        + ", ".join(f"{n} {s}" for s, n in sorted(counts.items()))
+        + f"; {made} product(s) made; exit status {exit_code}")
+    atomic_write_text(out / "night.log", "\n".join(log.lines) + "\n")
+    return NightResult(out_dir=out, inventory=inv, summary=summary, drift=drift,
+                       exit_code=exit_code, n_made=int(made), elapsed_s=elapsed)

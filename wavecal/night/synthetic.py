@@ -1,0 +1,126 @@
+"""A synthetic night of invented data (the invented Tamsin Hill Observatory) for tests, demos
+and benchmarks: two configurations whose lines drift through the night, science frames,
+biases, flats, and a set of bad files."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+from astropy.io import fits
+from astropy.time import Time
+
+from ..profile import InstrumentProfile, profile_from_dict
+from ..simulate import SimulatedArc, simulate_arc
+
+__all__ = ["night_profile", "SyntheticNight", "make_night"]
+
+BIAS_ADU = 300.0
+
+
+def night_profile() -> InstrumentProfile:
+    """A small invented long-slit spectrograph (64 x 1024 pixels, 300 grooves/mm)."""
+    return profile_from_dict({
+        "instrument": {"name": "Tamsin Hill night camera", "lamps": ["Hg", "Ar"],
+                       "medium": "air"},
+        "grating": {"mount": "reflection", "grooves_per_mm": 300.0, "deviation_deg": 30.0,
+                    "blaze_nm": 500.0},
+        "camera": {"focal_length_mm": 250.0},
+        "detector": {"pixel_size_um": 15.0, "shape": [64, 1024], "bias_adu": BIAS_ADU,
+                     "saturation_adu": 65000, "gain_e_per_adu": 1.2, "read_noise_e": 4.0},
+        "header": {"grating_angle": {"keyword": "GRTANGLE"}, "lamps": {"keyword": "ARCLAMPS"},
+                   "image_type": {"keyword": "FRAMETYP", "default": "unknown"},
+                   "exposure_time": {"keyword": "EXPOSURE", "default": 0.0},
+                   "observation_time": {"keyword": "DATE-OBS"},
+                   "binning": {"keyword": "BINXY", "default": "1 1"}},
+    })
+
+
+@dataclass(frozen=True)
+class SyntheticNight:
+    """What :func:`make_night` wrote: file name -> expected kind, and the true model of every
+    arc and science frame (a :class:`~wavecal.simulate.SimulatedArc`)."""
+
+    root: Path
+    profile: InstrumentProfile
+    kinds: dict[str, str]
+    truth: dict[str, SimulatedArc]
+    configuration: dict[str, int]
+    bad: dict[str, str]
+
+
+def make_night(root: str | Path, *, seed: int = 7, n_arcs: int = 4, n_science: int = 3,
+               n_bias: int = 3, n_flats: int = 1, drift_px_per_hour: float = 0.8,
+               bad_files: bool = True) -> SyntheticNight:
+    """Write a synthetic night into ``root``: two configurations (central wavelengths 520 and
+    760 nm), each with ``n_arcs`` arcs and ``n_science`` science frames spread over a night
+    whose lines drift by ``drift_px_per_hour`` (camera-axis pixel moving linearly in time)."""
+    root = Path(root)
+    root.mkdir(parents=True, exist_ok=True)
+    profile = night_profile()
+    rng = np.random.default_rng(seed)
+    start = Time("2025-03-14T19:00:00", scale="utc")
+    kinds, truth, config, bad = {}, {}, {}, {}
+    n = 0
+    for c, centre in enumerate((520.0, 760.0)):
+        hours = np.sort(np.concatenate([np.linspace(0.0, 8.0, n_arcs),
+                                        rng.uniform(0.3, 7.7, n_science)]))
+        is_arc = np.isin(hours, np.linspace(0.0, 8.0, n_arcs))
+        for h, arc in zip(hours, is_arc):
+            n += 1
+            date = (start + float(h) * u.hour).isot
+            sim = simulate_arc(profile, seed=seed + c, central_wavelength_nm=centre,
+                               axis_error_px=drift_px_per_hour * h, noise_seed=seed + 100 * n,
+                               bias_adu=BIAS_ADU, missing_fraction=0.05, date_obs=date,
+                               exposure_s=20.0 if arc else 600.0)
+            name = f"{'arc' if arc else 'obj'}_{n:04d}.fits"
+            header = sim.header.copy()
+            if not arc:
+                header["FRAMETYP"] = "object"
+                del header["ARCLAMPS"]
+            fits.PrimaryHDU(sim.data, header).writeto(root / name)
+            kinds[name] = "arc" if arc else "science"
+            truth[name] = sim
+            config[name] = c
+    for k in range(n_bias):
+        data = (BIAS_ADU + rng.normal(0.0, 3.0, (64, 1024))).astype(np.float32)
+        h = fits.Header({"FRAMETYP": "bias", "EXPOSURE": 0.0,
+                         "DATE-OBS": (start + k * u.minute).isot})
+        fits.PrimaryHDU(data, h).writeto(root / f"bias_{k + 1:02d}.fits")
+        kinds[f"bias_{k + 1:02d}.fits"] = "bias"
+    for k in range(n_flats):
+        data = (BIAS_ADU + 2e4 + rng.normal(0.0, 50.0, (64, 1024))).astype(np.float32)
+        h = fits.Header({"FRAMETYP": "flat", "EXPOSURE": 5.0, "GRTANGLE": 5.0})
+        fits.PrimaryHDU(data, h).writeto(root / f"flat_{k + 1:02d}.fits")
+        kinds[f"flat_{k + 1:02d}.fits"] = "flat"
+    if bad_files:
+        some_arc = truth[next(k for k in kinds if kinds[k] == "arc")]
+        raw = fits.HDUList([fits.PrimaryHDU(some_arc.data, some_arc.header)])
+        path = root / "bad_truncated.fits"
+        raw.writeto(path)
+        path.write_bytes(path.read_bytes()[:40000])
+        bad["bad_truncated.fits"] = "truncated"
+        (root / "bad_notfits.fits").write_text("this is not a FITS file\n")
+        bad["bad_notfits.fits"] = "not a readable FITS file"
+        h = some_arc.header.copy()
+        fits.PrimaryHDU(np.full(some_arc.data.shape, np.nan, np.float32), h).writeto(
+            root / "bad_nan.fits")
+        bad["bad_nan.fits"] = "NaN or infinite"
+        h = some_arc.header.copy()
+        del h["GRTANGLE"]
+        fits.PrimaryHDU(some_arc.data, h).writeto(root / "bad_nokeyword.fits")
+        bad["bad_nokeyword.fits"] = "GRTANGLE"
+        dark = (BIAS_ADU + rng.normal(0.0, 3.0, some_arc.data.shape)).astype(np.float32)
+        fits.PrimaryHDU(dark, some_arc.header.copy()).writeto(root / "bad_nolines.fits")
+        bad["bad_nolines.fits"] = "lines"
+        h = some_arc.header.copy()
+        h["FRAMETYP"] = "object"
+        h["GRTANGLE"] = 12.0
+        del h["ARCLAMPS"]
+        fits.PrimaryHDU(some_arc.data, h).writeto(root / "bad_noarc.fits")
+        bad["bad_noarc.fits"] = "no usable arc"
+        kinds.update({"bad_truncated.fits": "unknown", "bad_notfits.fits": "unknown",
+                      "bad_nan.fits": "arc", "bad_nokeyword.fits": "arc",
+                      "bad_nolines.fits": "arc", "bad_noarc.fits": "science"})
+    return SyntheticNight(root, profile, kinds, truth, config, bad)
