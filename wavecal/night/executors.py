@@ -44,7 +44,7 @@ def _dask(fn: Callable[..., dict], items: Sequence[dict], address: str
         msg = ('running on a Dask cluster needs the optional dependency: '
                'pip install "wavecal[dask]" (dask[distributed])')
         raise ImportError(msg) from exc
-    with Client(address, set_as_default=False) as client:
+    with Client(address) as client:
         futures = [client.submit(_call, fn, kw, pure=False) for kw in items]
         index = {f.key: i for i, f in enumerate(futures)}
         for fut in dask_completed(futures):
