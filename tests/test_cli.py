@@ -86,3 +86,13 @@ def test_apply_command_is_wired(arc_file, tmp_path):
     assert len(written) == 1
     with fits.open(written[0]) as hdul:
         assert hdul[0].header["WCSOLSTA"] == "ok"
+
+
+def test_night_command_is_wired(tmp_path, capsys):
+    from wavecal.night.synthetic import make_night
+
+    raw = tmp_path / "raw"
+    make_night(raw, n_arcs=1, n_science=1, n_bias=1, n_flats=0, bad_files=False)
+    code = main(["night", str(raw), "-p", "tho_longslit", "-o", str(tmp_path / "out"), "--quiet"])
+    assert code in (EXIT_OK, 3, EXIT_FAILED)
+    assert (tmp_path / "out" / "summary.csv").exists()

@@ -1,4 +1,4 @@
-"""Command line: ``wavecal solve``, ``demo``, ``show``, ``profiles``, ``plan`` and ``apply``.
+"""Command line: ``wavecal solve``, ``demo``, ``show``, ``profiles``, ``plan``, ``apply``, ``night``.
 
 Exit codes (also in the README):
 
@@ -94,7 +94,11 @@ def _parser() -> argparse.ArgumentParser:
     sub.add_parser("profiles", help="list the bundled example instrument profiles")
 
     from .apply import add_apply_arguments
+    from .night.command import add_night_arguments
     from .plan_cli import add_plan_arguments
+
+    add_night_arguments(sub.add_parser(
+        "night", help="a whole night's directory: inventory, arcs, drift, calibrated frames, summary"))
 
     add_apply_arguments(sub.add_parser(
         "apply", help="write wavelength-calibrated copies of frames (FITS WCS, optional resampling)"))
@@ -184,10 +188,11 @@ def main(argv: list[str] | None = None) -> int:
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
                         format="%(levelname)s %(name)s: %(message)s")
     from .apply import run_apply_command
+    from .night.command import run_night_command
     from .plan_cli import run_plan_command
 
     runners = {"solve": _run_solve, "demo": _run_demo, "show": _run_show, "profiles": _run_profiles,
-               "plan": run_plan_command, "apply": run_apply_command}
+               "plan": run_plan_command, "apply": run_apply_command, "night": run_night_command}
     try:
         return runners[args.command](args)
     except WavecalError as exc:

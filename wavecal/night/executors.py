@@ -7,7 +7,7 @@ from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from typing import Any
 
-__all__ = ["run_tasks"]
+__all__ = ["TaskPool"]
 
 
 def _serial(fn: Callable[..., dict], items: Sequence[dict]) -> Iterator[tuple[int, dict]]:
@@ -19,15 +19,6 @@ def _call(fn: Callable[..., dict], kwargs: dict) -> dict:
     return fn(**kwargs)
 
 
-def _processes(fn: Callable[..., dict], items: Sequence[dict], workers: int
-               ) -> Iterator[tuple[int, dict]]:
-    ctx = multiprocessing.get_context("spawn")  # no fork of a threaded parent
-    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-        futures = {pool.submit(_call, fn, kw): i for i, kw in enumerate(items)}
-        for fut in as_completed(futures):
-            yield futures[fut], _outcome(fut, items[futures[fut]])
-
-
 def _outcome(fut: Any, kwargs: dict) -> dict:
     try:
         return fut.result()
@@ -35,28 +26,8 @@ def _outcome(fut: Any, kwargs: dict) -> dict:
         return {"status": "failed", "reason": f"worker failed: {type(exc).__name__}: {exc}"}
 
 
-def _dask(fn: Callable[..., dict], items: Sequence[dict], address: str
-          ) -> Iterator[tuple[int, dict]]:
-    try:
-        from distributed import Client
-        from distributed import as_completed as dask_completed
-    except ImportError as exc:
-        msg = ('running on a Dask cluster needs the optional dependency: '
-               'pip install "wavecal[dask]" (dask[distributed])')
-        raise ImportError(msg) from exc
-    with Client(address) as client:
-        futures = [client.submit(_call, fn, kw, pure=False) for kw in items]
-        index = {f.key: i for i, f in enumerate(futures)}
-        for fut in dask_completed(futures):
-            yield index[fut.key], _outcome(fut, items[index[fut.key]])
-
-
-def run_tasks(fn: Callable[..., dict], items: Sequence[dict], *, workers: int = 1,
-              scheduler: str | None = None) -> Iterator[tuple[int, dict]]:
-    """Run ``fn(**kwargs)`` for each entry of ``items``; yield ``(index, result)`` as each ends.
-
-    ``fn`` must be a module-level function returning a dict (it should catch its own errors);
-    a task whose worker dies yields ``{"status": "failed", "reason": ...}``.
+class TaskPool:
+    """Where tasks run, kept open across the phases of a night (workers start once).
 
     Parameters
     ----------
@@ -64,9 +35,58 @@ def run_tasks(fn: Callable[..., dict], items: Sequence[dict], *, workers: int = 
         Local worker processes (1: run here, in order).
     scheduler : str, optional
         Address of a Dask distributed scheduler (``tcp://host:port``); overrides ``workers``.
+
+    Use as a context manager; the worker processes or the cluster connection are opened at the
+    first task that needs them and closed on exit.
     """
-    if scheduler:
-        return _dask(fn, items, scheduler)
-    if workers > 1 and len(items) > 1:
-        return _processes(fn, items, min(workers, len(items)))
-    return _serial(fn, items)
+
+    def __init__(self, *, workers: int = 1, scheduler: str | None = None) -> None:
+        self.workers = max(int(workers), 1)
+        self.scheduler = scheduler
+        self._pool: ProcessPoolExecutor | None = None
+        self._client: Any = None
+
+    def __enter__(self) -> TaskPool:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self._pool is not None:
+            self._pool.shutdown()
+        if self._client is not None:
+            self._client.close()
+
+    def run(self, fn: Callable[..., dict], items: Sequence[dict]) -> Iterator[tuple[int, dict]]:
+        """Run ``fn(**kwargs)`` for each entry of ``items``; yield ``(index, result)`` as each
+        ends.
+
+        ``fn`` must be a module-level function returning a dict (it should catch its own
+        errors); a task whose worker dies yields ``{"status": "failed", "reason": ...}``.
+        """
+        if self.scheduler:
+            return self._dask(fn, items)
+        if self.workers > 1 and len(items) > 1:
+            return self._processes(fn, items)
+        return _serial(fn, items)
+
+    def _processes(self, fn, items):
+        if self._pool is None:
+            ctx = multiprocessing.get_context("spawn")  # no fork of a threaded parent
+            self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx)
+        futures = {self._pool.submit(_call, fn, kw): i for i, kw in enumerate(items)}
+        for fut in as_completed(futures):
+            yield futures[fut], _outcome(fut, items[futures[fut]])
+
+    def _dask(self, fn, items):
+        try:
+            from distributed import Client
+            from distributed import as_completed as dask_completed
+        except ImportError as exc:
+            msg = ('running on a Dask cluster needs the optional dependency: '
+                   'pip install "wavecal[dask]" (dask[distributed])')
+            raise ImportError(msg) from exc
+        if self._client is None:
+            self._client = Client(self.scheduler)
+        futures = [self._client.submit(_call, fn, kw, pure=False) for kw in items]
+        index = {f.key: i for i, f in enumerate(futures)}
+        for fut in dask_completed(futures):
+            yield index[fut.key], _outcome(fut, items[index[fut.key]])

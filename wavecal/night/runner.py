@@ -32,7 +32,7 @@ from ..solution import load_solution
 from .assign import POLICIES, ArcPoint, assign
 from .bias import combine_bias, write_master_bias
 from .drift import relative_shift
-from .executors import run_tasks
+from .executors import TaskPool
 from .inventory import FileRecord, Inventory, build_inventory
 from .tasks import arc_task, read_manifest, science_task, sha256_file, write_manifest
 
@@ -154,22 +154,19 @@ def _master_biases(inv: Inventory, out: Path, redo: bool, log: _Log
     return masters, rows, made
 
 
-def _run(fn: Callable[..., dict], jobs: list[tuple[FileRecord, dict]], *, workers: int,
-         scheduler: str | None, progress: ProgressFn | None, what: str
-         ) -> dict[str, dict[str, Any]]:
+def _run(fn: Callable[..., dict], jobs: list[tuple[FileRecord, dict]], *, pool: TaskPool,
+         progress: ProgressFn | None, what: str) -> dict[str, dict[str, Any]]:
     results: dict[str, dict[str, Any]] = {}
     items = [kw for _, kw in jobs]
-    for done, (i, res) in enumerate(run_tasks(fn, items, workers=workers, scheduler=scheduler),
-                                    start=1):
+    for done, (i, res) in enumerate(pool.run(fn, items), start=1):
         results[jobs[i][0].name] = res
         if progress is not None:
             progress(done, len(jobs), f"{what} {jobs[i][0].name}: {res.get('status')}")
     return results
 
 
-def _arcs(inv: Inventory, out: Path, masters: dict, redo: bool, workers: int,
-          scheduler: str | None, progress: ProgressFn | None, log: _Log
-          ) -> dict[str, dict[str, Any]]:
+def _arcs(inv: Inventory, out: Path, masters: dict, redo: bool, pool: TaskPool,
+          progress: ProgressFn | None, log: _Log) -> dict[str, dict[str, Any]]:
     outcome, jobs = {}, []
     for r in inv.of_kind("arc"):
         product = out / "solutions" / f"{r.stem}.solution.json"
@@ -184,8 +181,7 @@ def _arcs(inv: Inventory, out: Path, masters: dict, redo: bool, workers: int,
                          "bias_path": None if bias is None else str(bias),
                          "product": str(product), "manifest": str(manifest), "key": key}))
     log(f"arcs: {len(outcome)} up to date, {len(jobs)} to calibrate")
-    for name, res in _run(arc_task, jobs, workers=workers, scheduler=scheduler,
-                          progress=progress, what="arc").items():
+    for name, res in _run(arc_task, jobs, pool=pool, progress=progress, what="arc").items():
         outcome[name] = {**res, "made": True}
         log(f"arc {name}: {res['status']} {res.get('reason', '')}".rstrip())
     return outcome
@@ -299,57 +295,58 @@ def run_night(raw_dir: str | Path,
     if progress is not None:
         progress(0, 1, inv.describe().splitlines()[0])
 
-    masters, rows, made = _master_biases(inv, out, redo, log)
-    arcs = _arcs(inv, out, masters, redo, workers, scheduler, progress, log)
-    points, drift = _drift(inv, arcs, cross_check_px, log)
-    atomic_write_text(out / "drift.csv", drift.to_csv(index=False))
-    shifts = {p.name: p.shift_px for pts in points.values() for p in pts}
-    for r in inv.of_kind("arc"):
-        res = arcs[r.name]
-        rows.append(_row(r, status=res["status"], reason=res.get("reason", ""),
-                         solution_used=_rel(res.get("product", ""), out),
-                         rms_px=res.get("rms_px", math.nan), drift_px=shifts.get(r.name, math.nan),
-                         product=_rel(res.get("product", ""), out), made=res["made"]))
-        made += res["made"] and "product" in res
+    with TaskPool(workers=workers, scheduler=scheduler) as pool:  # workers start once
+        masters, rows, made = _master_biases(inv, out, redo, log)
+        arcs = _arcs(inv, out, masters, redo, pool, progress, log)
+        points, drift = _drift(inv, arcs, cross_check_px, log)
+        atomic_write_text(out / "drift.csv", drift.to_csv(index=False))
+        shifts = {p.name: p.shift_px for pts in points.values() for p in pts}
+        for r in inv.of_kind("arc"):
+            res = arcs[r.name]
+            rows.append(_row(r, status=res["status"], reason=res.get("reason", ""),
+                             solution_used=_rel(res.get("product", ""), out),
+                             rms_px=res.get("rms_px", math.nan), drift_px=shifts.get(r.name, math.nan),
+                             product=_rel(res.get("product", ""), out), made=res["made"]))
+            made += res["made"] and "product" in res
 
-    jobs, science_rows = [], {}
-    for r in inv.of_kind("science"):
-        choice = assign(r.time_mjd, points.get(r.configuration, ()), policy=policy,
-                        drift_threshold_px=drift_threshold_px)
-        if choice is None:
-            science_rows[r.name] = _row(r, status="failed",
-                                        reason=f"no usable arc of configuration {r.configuration}")
-            continue
-        solution = Path(arcs[choice.arc]["product"])
-        product = out / "calibrated" / f"{r.stem}.wcal.fits"
-        manifest = out / "manifests" / f"{r.stem}.science.json"
-        bias = masters.get((r.profile, r.binning))
-        key = {**_file_key(r), "task": "science", "bias": sha256_file(bias),
-               "solution": sha256_file(solution), "shift_px": round(choice.shift_px, 6)}
-        base = {"solution_used": choice.label, "drift_px": choice.drift_px,
-                "product": _rel(product, out)}
-        result = _up_to_date(product, manifest, key, redo)
-        if result is not None:
-            science_rows[r.name] = _row(r, status=result["status"], reason=result["reason"],
-                                        rms_px=result.get("rms_px"), **base)
-            continue
-        science_rows[r.name] = _row(r, made=True, **base)
-        jobs.append((r, {"path": str(r.path), "profile": inv.profiles[r.profile],
-                         "bias_path": None if bias is None else str(bias),
-                         "solution_path": str(solution), "shift_px": choice.shift_px,
-                         "product": str(product), "manifest": str(manifest), "key": key}))
-    log(f"science: {len(inv.of_kind('science')) - len(jobs)} up to date or unassigned, "
-        f"{len(jobs)} to calibrate")
-    for name, res in _run(science_task, jobs, workers=workers, scheduler=scheduler,
-                          progress=progress, what="science").items():
-        row = science_rows[name]
-        row.update(status=res["status"], reason=res.get("reason", ""),
-                   rms_px=res.get("rms_px", math.nan))
-        if res["status"] == "failed":
-            row["product"] = ""
-        made += res["status"] != "failed"
-        log(f"science {name}: {res['status']} {res.get('reason', '')}".rstrip())
-    rows += list(science_rows.values())
+        jobs, science_rows = [], {}
+        for r in inv.of_kind("science"):
+            choice = assign(r.time_mjd, points.get(r.configuration, ()), policy=policy,
+                            drift_threshold_px=drift_threshold_px)
+            if choice is None:
+                science_rows[r.name] = _row(r, status="failed",
+                                            reason=f"no usable arc of configuration {r.configuration}")
+                continue
+            solution = Path(arcs[choice.arc]["product"])
+            product = out / "calibrated" / f"{r.stem}.wcal.fits"
+            manifest = out / "manifests" / f"{r.stem}.science.json"
+            bias = masters.get((r.profile, r.binning))
+            key = {**_file_key(r), "task": "science", "bias": sha256_file(bias),
+                   "solution": sha256_file(solution), "shift_px": round(choice.shift_px, 6)}
+            base = {"solution_used": choice.label, "drift_px": choice.drift_px,
+                    "product": _rel(product, out)}
+            result = _up_to_date(product, manifest, key, redo)
+            if result is not None:
+                science_rows[r.name] = _row(r, status=result["status"], reason=result["reason"],
+                                            rms_px=result.get("rms_px"), **base)
+                continue
+            science_rows[r.name] = _row(r, made=True, **base)
+            jobs.append((r, {"path": str(r.path), "profile": inv.profiles[r.profile],
+                             "bias_path": None if bias is None else str(bias),
+                             "solution_path": str(solution), "shift_px": choice.shift_px,
+                             "product": str(product), "manifest": str(manifest), "key": key}))
+        log(f"science: {len(inv.of_kind('science')) - len(jobs)} up to date or unassigned, "
+            f"{len(jobs)} to calibrate")
+        for name, res in _run(science_task, jobs, pool=pool, progress=progress,
+                              what="science").items():
+            row = science_rows[name]
+            row.update(status=res["status"], reason=res.get("reason", ""),
+                       rms_px=res.get("rms_px", math.nan))
+            if res["status"] == "failed":
+                row["product"] = ""
+            made += res["status"] != "failed"
+            log(f"science {name}: {res['status']} {res.get('reason', '')}".rstrip())
+        rows += list(science_rows.values())
 
     for r in inv.records:
         if r.problem:
