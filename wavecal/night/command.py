@@ -39,6 +39,8 @@ def add_night_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--redo", action="store_true",
                         help="remake every product, even those up to date")
     parser.add_argument("--quiet", action="store_true", help="no progress output")
+    parser.add_argument("--no-report", action="store_true",
+                        help="do not write the QA reports (night_report.html, reports/)")
 
 
 def run_night_command(args: argparse.Namespace) -> int:
@@ -55,7 +57,8 @@ def run_night_command(args: argparse.Namespace) -> int:
                            angle_tolerance_deg=args.angle_tolerance,
                            profile_keyword=args.profile_keyword,
                            extra_keywords=tuple(args.group_by), redo=args.redo,
-                           progress=None if args.quiet else Progress(sys.stderr))
+                           progress=None if args.quiet else Progress(sys.stderr),
+                           reports=not getattr(args, "no_report", False))
     except (WavecalError, ImportError, OSError) as exc:
         print(f"wavecal night: {exc}", file=sys.stderr)
         return 1

@@ -9,7 +9,10 @@ Output layout (``out_dir``)::
     drift.csv            per configuration: arc, time, shift (px) relative to its first arc
     night.log            what happened, in plain text
     calibrations/        master bias frames
-    solutions/           <stem>.solution.json of every arc
+    solutions/           <stem>.solution.json of every arc (and <stem>.spectrum.npz, its
+                         extracted spectrum, for the reports)
+    night_report.html    the night's QA page (with night_report.json, night_*.png)
+    reports/             <stem>.report.html (+ .json, .png) of every arc
     calibrated/          <stem>.wcal.fits of every science frame
     manifests/           what each product was made from (for resuming)
 """
@@ -28,6 +31,7 @@ from .. import __version__
 from .._atomic import atomic_write_text
 from ..errors import FrameError, WavecalError
 from ..profile import InstrumentProfile
+from ..report import write_night_report
 from ..solution import load_solution
 from .assign import POLICIES, ArcPoint, assign
 from .bias import combine_bias, write_master_bias
@@ -231,7 +235,7 @@ def run_night(raw_dir: str | Path,
               drift_threshold_px: float = 0.05, cross_check_px: float = 0.5,
               angle_tolerance_deg: float = 0.01, profile_keyword: str = "INSTRUME",
               extra_keywords: tuple[str, ...] = (), redo: bool = False,
-              progress: ProgressFn | None = None) -> NightResult:
+              progress: ProgressFn | None = None, reports: bool = True) -> NightResult:
     """Process a whole night's directory of raw FITS files.
 
     Parameters
@@ -262,6 +266,8 @@ def run_night(raw_dir: str | Path,
     progress : callable, optional
         ``progress(done, total, message)`` after each task (see
         :class:`~wavecal.night.progress.Progress`).
+    reports : bool
+        Write the QA reports (:func:`wavecal.report.write_night_report`) at the end.
 
     Returns
     -------
@@ -370,6 +376,9 @@ def run_night(raw_dir: str | Path,
     log(f"done in {elapsed:.1f} s: {len(summary)} files, "
         + ", ".join(f"{n} {s}" for s, n in sorted(counts.items()))
         + f"; {made} product(s) made; exit status {exit_code}")
+    if reports:
+        write_night_report(out)
+        log(f"reports: {out / 'night_report.html'}")
     atomic_write_text(out / "night.log", "\n".join(log.lines) + "\n")
     return NightResult(out_dir=out, inventory=inv, summary=summary, drift=drift,
                        exit_code=exit_code, n_made=int(made), elapsed_s=elapsed)

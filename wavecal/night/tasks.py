@@ -20,6 +20,7 @@ from ..apply import calibrate_image
 from ..calibrate import calibrate_frame
 from ..frames import read_frame
 from ..profile import InstrumentProfile
+from ..report.spectrum_file import save_spectrum, spectrum_path
 from ..solution import load_solution
 from .bias import read_master_bias
 from .drift import shifted_solution
@@ -58,8 +59,10 @@ def arc_task(*, path: str, profile: InstrumentProfile, bias_path: str | None, pr
     try:
         bias = read_master_bias(bias_path) if bias_path else None
         frame = read_frame(path, profile, bias=bias)
-        solution = calibrate_frame(frame, profile)
+        calibration = calibrate_frame(frame, profile, details=True)
+        solution = calibration.solution
         solution.write(product)
+        save_spectrum(spectrum_path(product), calibration.spectrum.x, calibration.spectrum.flux)
         result = {"status": solution.status, "reason": "; ".join(solution.reasons),
                   "rms_px": solution.rms_px, "product": product}
     except Exception as exc:  # every failure becomes a row of the summary

@@ -1,0 +1,112 @@
+"""Frame and night QA reports: escaping, failed frames, the JSON twin, regeneration."""
+from __future__ import annotations
+
+import argparse
+import json
+import re
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from wavecal.calibrate import calibrate_frame
+from wavecal.frames import frame_from_array
+from wavecal.night.synthetic import night_profile
+from wavecal.report import (load_spectrum, save_spectrum, spectrum_path, write_frame_report,
+                            write_night_report)
+from wavecal.report.command import add_report_arguments, run_report_command
+from wavecal.simulate import simulate_arc
+from wavecal.solution import load_solution
+
+EVIL = "<script>alert(1)</script>"
+
+
+@pytest.fixture(scope="module")
+def calibration():
+    profile = night_profile()
+    sim = simulate_arc(profile, seed=11, line_tilt_deg=0.8, line_curvature_px=0.4)
+    frame = frame_from_array(sim.data, profile, header=sim.header, path="arc_0001.fits")
+    return calibrate_frame(frame, profile, details=True)
+
+
+def test_frame_report_files_and_json_twin(calibration, tmp_path):
+    sol = calibration.solution
+    rep = write_frame_report(sol, tmp_path, spectrum=calibration.spectrum)
+    assert rep.html.name == "arc_0001.report.html"
+    assert {p.name for p in rep.pngs} >= {"arc_0001.spectrum.png", "arc_0001.residuals.png",
+                                          "arc_0001.quality.png"}
+    for p in rep.pngs:
+        assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    text = rep.html.read_text()
+    assert "http://" not in text and "https://" not in text  # self-contained
+    assert text.count("data:image/png;base64,") == len(rep.pngs)
+    facts = json.loads(rep.json.read_text())
+    assert facts["status"] == sol.status
+    assert facts["n_used"] == sol.statistics["n_used"]
+    assert [p["name"] for p in facts["parameters"]] == [p["name"] for p in sol.parameters]
+    assert facts["identification_counts"]["used"] == int(
+        (sol.lines["identification"] == "used").sum())
+    # the spectrum figure labels the used lines with wavelength and element
+    assert sol.slit is not None and "arc_0001.slit.png" in facts["figures"]
+
+
+def test_header_strings_are_escaped(calibration, tmp_path):
+    sol = replace(calibration.solution, frame=f"arc{EVIL}.fits", profile=EVIL,
+                  lamps=(EVIL, "Ne"), reasons=(EVIL,))
+    rep = write_frame_report(sol, tmp_path, stem="evil")
+    text = rep.html.read_text()
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text
+    assert "<script>alert" not in text
+    assert json.loads(rep.json.read_text())["profile"] == EVIL  # JSON keeps the raw value
+
+
+def test_failed_frame_report(tmp_path):
+    profile = night_profile()
+    rng = np.random.default_rng(3)
+    dark = (1000 + rng.normal(0, 3, (64, 1024))).astype(np.float32)
+    sim = simulate_arc(profile, seed=1)
+    frame = frame_from_array(dark, profile, header=sim.header, path="dark_arc.fits")
+    cal = calibrate_frame(frame, profile, details=True)
+    assert cal.solution.status == "failed"
+    rep = write_frame_report(cal.solution, tmp_path, spectrum=cal.spectrum)
+    text = rep.html.read_text()
+    assert "FAILED" in text and "No usable solution" in text
+    for reason in cal.solution.reasons:
+        assert reason.split()[0] in text
+    assert json.loads(rep.json.read_text())["status"] == "failed"
+
+
+def test_regenerate_from_saved_solution(calibration, tmp_path):
+    path = tmp_path / "arc_0001.solution.json"
+    calibration.solution.write(path)
+    save_spectrum(spectrum_path(path), calibration.spectrum.x, calibration.spectrum.flux)
+    x, flux = load_spectrum(spectrum_path(path))
+    assert np.allclose(flux, calibration.spectrum.flux, rtol=1e-6)
+    parser = argparse.ArgumentParser()
+    add_report_arguments(parser)
+    assert run_report_command(parser.parse_args([str(path), "-o", str(tmp_path / "r")])) == 0
+    assert (tmp_path / "r" / "arc_0001.report.html").is_file()
+    facts = json.loads((tmp_path / "r" / "arc_0001.report.json").read_text())
+    assert facts["rms_px"] == pytest.approx(load_solution(path).rms_px)
+    assert run_report_command(parser.parse_args([str(tmp_path / "missing.solution.json")])) == 1
+
+
+def test_night_report_orders_failed_first(tmp_path):
+    from wavecal.night import run_night
+    from wavecal.night.synthetic import make_night
+    night = make_night(tmp_path / "raw", n_arcs=2, n_science=1, n_bias=1, n_flats=0)
+    res = run_night(tmp_path / "raw", night.profile, tmp_path / "out", reports=False)
+    assert not (tmp_path / "out" / "night_report.html").exists()
+    rep = write_night_report(tmp_path / "out")
+    facts = json.loads(rep.json.read_text())
+    statuses = [f["status"] for f in facts["files"]]
+    rank = {"failed": 0, "suspect": 1, "ok": 2, "skipped": 3}
+    assert statuses == sorted(statuses, key=rank.__getitem__)
+    assert len(facts["files"]) == len(res.summary)
+    text = rep.html.read_text()
+    links = re.findall(r'href="([^"]+)"', text)
+    assert links and all(not link.startswith(("/", "http")) for link in links)
+    for link in links:
+        assert (tmp_path / "out" / link).is_file()
+    good_arcs = [a for a in facts["arcs"] if a["status"] in ("ok", "suspect")]
+    assert good_arcs and all(a["report"] and a["n_used"] > 0 for a in good_arcs)

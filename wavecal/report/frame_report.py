@@ -1,0 +1,198 @@
+"""The QA report of one solution: an HTML page, its figures as PNG files and a JSON twin.
+
+Files written into ``out_dir`` for a frame stem ``S``: ``S.report.html`` (self-contained),
+``S.spectrum.png``, ``S.residuals.png``, ``S.quality.png``, ``S.slit.png`` (long-slit only) and
+``S.report.json`` (the facts of the page, for monitoring).
+"""
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .._atomic import atomic_write_bytes, atomic_write_text
+from ..solution import Solution, _jsonable
+from . import figures
+from .html import esc, fmt, image, page, status_badge, table
+
+__all__ = ["FrameReport", "write_frame_report", "frame_facts", "report_stem",
+           "LARGE_SHIFT_SIGMA"]
+
+#: A parameter that moved more than this many prior half-widths from its nominal value is
+#: flagged: the instrument or its header may be off (common practice: the prior box is the
+#: expected range of the instrument's setting).
+LARGE_SHIFT_SIGMA = 1.0
+
+
+@dataclass(frozen=True)
+class FrameReport:
+    """Paths of one frame report.
+
+    Attributes
+    ----------
+    html : Path
+    json : Path
+    pngs : tuple of Path
+    """
+
+    html: Path
+    json: Path
+    pngs: tuple[Path, ...]
+
+
+def report_stem(solution: Solution) -> str:
+    """File stem of a solution's report: the frame's file name without ``.fits``/``.fit``
+    (``"solution"`` when the frame is unknown)."""
+    name = Path(solution.frame).name if solution.frame else "solution"
+    for suffix in (".fits.gz", ".fits", ".fit", ".fts"):
+        if name.lower().endswith(suffix):
+            return name[:-len(suffix)] or "solution"
+    return name or "solution"
+
+
+def frame_facts(solution: Solution) -> dict[str, Any]:
+    """The facts shown by a frame report, JSON-safe."""
+    params = []
+    for p in solution.parameters:
+        shift = p.get("shift_sigma")
+        shift = math.nan if shift is None else float(shift)
+        params.append({**{k: _jsonable(v) for k, v in p.items()},
+                       "large_shift": bool(math.isfinite(shift)
+                                           and abs(shift) > LARGE_SHIFT_SIGMA)})
+    counts = solution.lines["identification"].astype(str).value_counts().to_dict()
+    return {"schema": "wavecal-frame-report", "schema_version": 1,
+            **solution.summary(),
+            "identification_counts": {k: int(v) for k, v in sorted(counts.items())},
+            "parameters": params,
+            "correlation": {"names": list(solution.correlation.get("names", ())),
+                            "matrix": _jsonable(np.asarray(solution.correlation.get(
+                                "matrix", []), dtype=float))},
+            "software_version": solution.software_version}
+
+
+def _verdict_html(solution: Solution, facts: dict[str, Any]) -> str:
+    words = {"ok": "This solution can be trusted.",
+             "suspect": "This solution may be usable but needs a look:",
+             "failed": "No usable solution was found:"}
+    reasons = "".join(f"<li>{esc(r)}</li>" for r in solution.reasons)
+    moved = [p for p in facts["parameters"] if p["large_shift"]]
+    warn = "".join(
+        f'<li class="warn">{esc(p["name"])} moved {fmt(p["shift_sigma"], "+.2f")} prior '
+        f"half-widths from its nominal value: the instrument or its header may be off.</li>"
+        for p in moved)
+    return (f"<p>{status_badge(solution.status)} {esc(words.get(solution.status, ''))}</p>"
+            + (f"<ul>{reasons}{warn}</ul>" if reasons or warn else ""))
+
+
+def _headline_html(solution: Solution, facts: dict[str, Any]) -> str:
+    rows = [("frame", esc(solution.frame)), ("profile", esc(solution.profile)),
+            ("lamps", esc(", ".join(solution.lamps))), ("medium", esc(solution.medium)),
+            ("RMS", f"{fmt(facts.get('rms_px'), '.4f')} px = {fmt(facts.get('rms_nm'), '.5f')} nm"
+                    f" = {fmt(facts.get('rms_kms'), '.3f')} km/s"),
+            ("lines used / rejected / peaks", f"{fmt(facts.get('n_used'))} / "
+             f"{fmt(facts.get('n_rejected'))} / {fmt(facts.get('n_peaks'))}"),
+            ("covered pixels", " – ".join(fmt(v, ".1f") for v in solution.covered_range_px)),
+            ("wavelength range (nm)", " – ".join(fmt(v, ".3f")
+                                                 for v in facts.get("wavelength_range_nm", ()))
+             or "—"),
+            ("chance identification (log10)", fmt(facts.get("log10_chance"), ".1f")),
+            ("software", esc(solution.software_version))]
+    return table(("quantity", "value"), rows)
+
+
+def _parameters_html(facts: dict[str, Any]) -> str:
+    if not facts["parameters"]:
+        return '<p class="note">No fitted parameters (no solution).</p>'
+    rows, classes = [], []
+    for p in facts["parameters"]:
+        rows.append((esc(p.get("name")), fmt(p.get("value"), ".6g"), fmt(p.get("error"), ".2g"),
+                     fmt(p.get("nominal"), ".6g"), fmt(p.get("prior"), ".3g"),
+                     fmt(p.get("shift_sigma"), "+.2f")))
+        classes.append("suspect" if p["large_shift"] else "")
+    out = table(("parameter", "value", "uncertainty", "nominal", "prior half-width",
+                 "move (prior half-widths)"), rows, row_classes=classes)
+    names = facts["correlation"]["names"]
+    matrix = facts["correlation"]["matrix"]
+    if names and matrix:
+        rows = [(esc(n), *(fmt(v, "+.2f") for v in row)) for n, row in zip(names, matrix)]
+        out += "<h3>Correlations</h3>" + table(("", *names), rows)
+    return out
+
+
+def _lines_html(solution: Solution) -> str:
+    lines = solution.lines
+    rows, classes = [], []
+    for _, r in lines.iterrows():
+        rows.append((fmt(r["x"], ".2f"), fmt(r["x_err"], ".3f"), fmt(r["fwhm"], ".2f"),
+                     fmt(r["snr"], ".0f"), esc(r["identification"]), esc(r["element"]),
+                     fmt(r["line_wavelength"], ".4f"), fmt(r["residual_px"], "+.3f")))
+        ident = str(r["identification"])
+        classes.append("" if ident == "used" else "failed" if ident == "rejected" else "skipped")
+    return table(("x (px)", "σx", "FWHM", "S/N", "identification", "element",
+                  "wavelength (nm)", "residual (px)"), rows, row_classes=classes)
+
+
+def write_frame_report(solution: Solution, out_dir: str | Path, *,
+                       spectrum: tuple[np.ndarray, np.ndarray] | Any | None = None,
+                       stem: str | None = None) -> FrameReport:
+    """Write the report of ``solution`` into ``out_dir`` (created if needed), atomically.
+
+    Parameters
+    ----------
+    solution : Solution
+        Any solution, failed ones included.
+    out_dir : str or Path
+    spectrum : (x, flux) or Spectrum, optional
+        The extracted arc spectrum; without it the peaks are drawn as sticks.
+    stem : str, optional
+        File stem; default :func:`report_stem`.
+
+    Returns
+    -------
+    FrameReport
+    """
+    out = Path(out_dir)
+    stem = stem or report_stem(solution)
+    if spectrum is not None and hasattr(spectrum, "flux"):
+        spectrum = (np.asarray(spectrum.x, float), np.asarray(spectrum.flux, float))
+    facts = frame_facts(solution)
+    figs = {"spectrum": figures.spectrum_figure(solution, spectrum),
+            "residuals": figures.residuals_figure(solution),
+            "quality": figures.quality_figure(solution)}
+    slit = figures.slit_figure(solution)
+    if slit is not None:
+        figs["slit"] = slit
+    pngs = {key: figures.png_bytes(fig) for key, fig in figs.items()}
+    captions = {"spectrum": "Arc spectrum and identified lines",
+                "residuals": "Residuals versus pixel and wavelength (shaded: extrapolated)",
+                "quality": "Residual histogram, line width and resolving power",
+                "slit": "Line tilt and curvature along the slit"}
+    body = [f"<h1>Wavelength solution of {esc(Path(solution.frame).name if solution.frame else stem)}</h1>",
+            "<h2>Verdict</h2>", _verdict_html(solution, facts),
+            "<h2>Summary</h2>", _headline_html(solution, facts)]
+    for key, png in pngs.items():
+        body += [f"<h2>{esc(captions[key])}</h2>", image(png, captions[key])]
+    body += ["<h2>Fitted physical parameters</h2>", _parameters_html(facts),
+             "<h2>Every detected peak</h2>", _lines_html(solution)]
+    paths = []
+    for key, png in pngs.items():
+        path = out / f"{stem}.{key}.png"
+        atomic_write_bytes(path, png)
+        paths.append(path)
+    facts["figures"] = [p.name for p in paths]
+    html_path, json_path = out / f"{stem}.report.html", out / f"{stem}.report.json"
+    atomic_write_text(json_path, json.dumps(_jsonable_tree(facts), indent=1, allow_nan=False) + "\n")
+    atomic_write_text(html_path, page(f"wavecal: {stem}", "\n".join(body)))
+    return FrameReport(html=html_path, json=json_path, pngs=tuple(paths))
+
+
+def _jsonable_tree(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {str(k): _jsonable_tree(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable_tree(v) for v in value]
+    return _jsonable(value)
