@@ -96,3 +96,14 @@ def test_night_command_is_wired(tmp_path, capsys):
     code = main(["night", str(raw), "-p", "tho_longslit", "-o", str(tmp_path / "out"), "--quiet"])
     assert code in (EXIT_OK, 3, EXIT_FAILED)
     assert (tmp_path / "out" / "summary.csv").exists()
+
+
+def test_solve_writes_a_report_unless_told_not_to(arc_file, tmp_path):
+    assert main(["solve", str(arc_file), "-p", "tho_longslit", "-o", str(tmp_path / "a")]) == EXIT_OK
+    html = (tmp_path / "a" / "arc_01.report.html").read_text()
+    assert "data:image/png;base64," in html and "http" not in html.split("<body", 1)[1]
+    assert main(["solve", str(arc_file), "-p", "tho_longslit", "-o", str(tmp_path / "b"),
+                 "--no-report"]) == EXIT_OK
+    assert not list((tmp_path / "b").glob("*.report.html"))
+    assert main(["report", str(tmp_path / "a" / "arc_01.solution.json"), "-o", str(tmp_path / "c")]) == EXIT_OK
+    assert (tmp_path / "c" / "arc_01.report.html").exists()

@@ -1,4 +1,5 @@
-"""Command line: ``wavecal solve``, ``demo``, ``show``, ``profiles``, ``plan``, ``apply``, ``night``.
+"""Command line: ``wavecal solve``, ``demo``, ``show``, ``profiles``, ``plan``, ``apply``,
+``night`` and ``report``.
 
 Exit codes (also in the README):
 
@@ -81,6 +82,8 @@ def _parser() -> argparse.ArgumentParser:
     solve.add_argument("--min-snr", type=float, default=5.0, help="peak detection threshold (default: %(default)s)")
     solve.add_argument("--fit-grooves", action="store_true", help="also fit the groove density")
     solve.add_argument("--no-plot", action="store_true", help="skip the residual plot")
+    solve.add_argument("--no-report", action="store_true",
+                       help="skip the QA report (HTML with figures, and its JSON twin)")
     solve.add_argument("--no-slit", action="store_true",
                        help="do not follow the lines along the slit (one solution for all rows)")
 
@@ -96,6 +99,10 @@ def _parser() -> argparse.ArgumentParser:
     from .apply import add_apply_arguments
     from .night.command import add_night_arguments
     from .plan_cli import add_plan_arguments
+    from .report.command import add_report_arguments
+
+    add_report_arguments(sub.add_parser(
+        "report", help="(re)write QA reports from saved solutions or a night's output folder"))
 
     add_night_arguments(sub.add_parser(
         "night", help="a whole night's directory: inventory, arcs, drift, calibrated frames, summary"))
@@ -114,17 +121,27 @@ def _solve_one(frame: Path, profile, args, out: Path):
     from .summary_text import format_summary
 
     start = time.perf_counter()
-    solution = calibrate_frame(frame, profile, lamps=getattr(args, "lamps", None),
+    calibration = calibrate_frame(frame, profile, lamps=getattr(args, "lamps", None),
                                grating_angle_deg=getattr(args, "grating_angle", None),
                                rows=getattr(args, "rows", None),
                                min_snr=getattr(args, "min_snr", 5.0),
                                free_grooves=getattr(args, "fit_grooves", False),
-                               trace_slit=not getattr(args, "no_slit", False))
+                               trace_slit=not getattr(args, "no_slit", False), details=True)
+    solution = calibration.solution
     elapsed = time.perf_counter() - start
     products = write_products(solution, out, stem=frame.name, plot=not getattr(args, "no_plot", False))
+    report = None
+    if not getattr(args, "no_report", False):
+        from .report import save_spectrum, spectrum_path, write_frame_report
+
+        save_spectrum(spectrum_path(products.solution), calibration.spectrum.x,
+                      calibration.spectrum.flux)
+        report = write_frame_report(solution, out, spectrum=calibration.spectrum,
+                                    stem=products.solution.name.removesuffix(".solution.json"))
     print(format_summary(solution))
     print(f"  written   : {products.solution}, {products.lines}"
           + (f", {products.residual_plot}" if products.residual_plot else "")
+          + (f", {report.html}" if report is not None else "")
           + f"  ({elapsed:.2f} s)")
     print()
     return solution.status
@@ -190,9 +207,11 @@ def main(argv: list[str] | None = None) -> int:
     from .apply import run_apply_command
     from .night.command import run_night_command
     from .plan_cli import run_plan_command
+    from .report.command import run_report_command
 
     runners = {"solve": _run_solve, "demo": _run_demo, "show": _run_show, "profiles": _run_profiles,
-               "plan": run_plan_command, "apply": run_apply_command, "night": run_night_command}
+               "plan": run_plan_command, "apply": run_apply_command, "night": run_night_command,
+               "report": run_report_command}
     try:
         return runners[args.command](args)
     except WavecalError as exc:
