@@ -81,7 +81,8 @@ def _parser() -> argparse.ArgumentParser:
     solve.add_argument("--rows", type=_row_range, help="slit rows START:STOP to collapse (default: illuminated rows)")
     solve.add_argument("--min-snr", type=float, default=5.0, help="peak detection threshold (default: %(default)s)")
     solve.add_argument("--fit-grooves", action="store_true", help="also fit the groove density")
-    solve.add_argument("--no-plot", action="store_true", help="skip the residual plot")
+    solve.add_argument("--no-plot", action="store_true",
+                       help="skip the residual plot (the QA report, unless --no-report, has its own)")
     solve.add_argument("--no-report", action="store_true",
                        help="skip the QA report (HTML with figures, and its JSON twin)")
     solve.add_argument("--no-slit", action="store_true",
@@ -129,9 +130,12 @@ def _solve_one(frame: Path, profile, args, out: Path):
                                trace_slit=not getattr(args, "no_slit", False), details=True)
     solution = calibration.solution
     elapsed = time.perf_counter() - start
-    products = write_products(solution, out, stem=frame.name, plot=not getattr(args, "no_plot", False))
+    with_report = not getattr(args, "no_report", False)
+    # the report draws its own <stem>.residuals.png: do not draw it twice
+    products = write_products(solution, out, stem=frame.name,
+                              plot=not (getattr(args, "no_plot", False) or with_report))
     report = None
-    if not getattr(args, "no_report", False):
+    if with_report:
         from .report import save_spectrum, spectrum_path, write_frame_report
 
         save_spectrum(spectrum_path(products.solution), calibration.spectrum.x,

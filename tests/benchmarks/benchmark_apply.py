@@ -22,28 +22,18 @@ along the slit, the solution carries a slit model and the WCS becomes a 2-D tabl
 from __future__ import annotations
 
 import argparse
-import statistics
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
 from astropy.io import fits
 
+from _timing import median_time  # the folder of this script is on sys.path
 from wavecal.apply import apply_solution
 from wavecal.calibrate import calibrate_frame
 from wavecal.profile import load_profile
 from wavecal.simulate import simulate_arc
-
-
-def _median_time(func, repeat: int) -> tuple[float, object]:
-    times, result = [], None
-    for _ in range(repeat):
-        start = time.perf_counter()
-        result = func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), result
 
 
 def read_and_write(path: Path, out: Path) -> None:
@@ -57,11 +47,11 @@ def read_and_write(path: Path, out: Path) -> None:
 
 def _report(label: str, path: Path, solution_path: Path, folder: Path, repeat: int) -> None:
     read_and_write(path, folder / "copy.fits")  # warm-up (page cache, imports)
-    t_io, _ = _median_time(lambda: read_and_write(path, folder / "copy.fits"), repeat)
+    t_io, _ = median_time(lambda: read_and_write(path, folder / "copy.fits"), repeat)
     apply_solution(solution_path, path, folder / "wcs.fits")
-    t_wcs, wcs = _median_time(lambda: apply_solution(solution_path, path, folder / "wcs.fits"),
+    t_wcs, wcs = median_time(lambda: apply_solution(solution_path, path, folder / "wcs.fits"),
                               repeat)
-    t_res, res = _median_time(lambda: apply_solution(solution_path, path, folder / "res.fits",
+    t_res, res = median_time(lambda: apply_solution(solution_path, path, folder / "res.fits",
                                                      grid="linear"), repeat)
     size_mb = path.stat().st_size / 1024 ** 2
     print(f"{label} ({size_mb:.1f} MB file):")

@@ -23,31 +23,21 @@ from __future__ import annotations
 
 import argparse
 import resource
-import statistics
 import subprocess
 import sys
 import tempfile
-import time
 import tracemalloc
 from pathlib import Path
 
 import numpy as np
 from astropy.io import fits
 
+from _timing import median_time  # the folder of this script is on sys.path
 from wavecal.calibrate import calibrate_frame
 from wavecal.profile import load_profile
 from wavecal.simulate import simulate_arc
 
 MB = 1024.0 ** 2
-
-
-def _median_time(func, repeat: int) -> tuple[float, object]:
-    times, result = [], None
-    for _ in range(repeat):
-        start = time.perf_counter()
-        result = func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), result
 
 
 def read_and_collapse(path: Path, dispersion_axis: int) -> np.ndarray:
@@ -106,7 +96,7 @@ def main(argv: list[str] | None = None) -> int:
 
     axis = profile.detector.dispersion_axis
     simulate_arc(profile, seed=args.seed)  # warm-up: imports, line lists
-    t_sim, arc = _median_time(lambda: simulate_arc(profile, seed=args.seed), args.repeat)
+    t_sim, arc = median_time(lambda: simulate_arc(profile, seed=args.seed), args.repeat)
     frame_mb = arc.data.size * 4 / MB
 
     with tempfile.TemporaryDirectory(prefix="wavecal-bench-") as folder:
@@ -117,8 +107,8 @@ def main(argv: list[str] | None = None) -> int:
         peak_mb, rss_growth = (float(v) for v in child.stdout.split())
         read_and_collapse(path, axis)
         calibrate_frame(path, profile)  # warm-up
-        t_read, _ = _median_time(lambda: read_and_collapse(path, axis), args.repeat)
-        t_cal, solution = _median_time(lambda: calibrate_frame(path, profile), args.repeat)
+        t_read, _ = median_time(lambda: read_and_collapse(path, axis), args.repeat)
+        t_cal, solution = median_time(lambda: calibrate_frame(path, profile), args.repeat)
 
     lo, hi = solution.covered_range_px
     x = np.linspace(lo, hi, 500) if solution.model is not None else np.array([])
