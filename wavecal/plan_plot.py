@@ -14,7 +14,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from .plots import save_png  # noqa: E402
+from ._atomic import atomic_path  # noqa: E402
 
 if TYPE_CHECKING:
     from .plan import SetupPlan
@@ -123,4 +123,11 @@ def plan_figure(plan: SetupPlan):
 
 def save_plan_plot(plan: SetupPlan, path: str | Path) -> Path:
     """Write :func:`plan_figure` as a PNG file, atomically; returns the path."""
-    return save_png(plan_figure(plan), path)
+    path = Path(path)
+    fig = plan_figure(plan)
+    try:
+        with atomic_path(path) as tmp:
+            fig.savefig(tmp, format="png", dpi=110)
+    finally:
+        plt.close(fig)
+    return path

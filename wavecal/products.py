@@ -5,7 +5,7 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
-from ._atomic import atomic_write_text
+from ._atomic import atomic_write_bytes, atomic_write_text
 from .solution import Solution
 
 __all__ = ["Products", "write_products", "safe_stem"]
@@ -44,7 +44,8 @@ def write_products(solution: Solution, out_dir: str | Path, *, stem: str | None 
     atomic_write_text(lines_path, solution.lines.to_csv(index=False, float_format="%.6f"))
     plot_path = None
     if plot:
-        from .plots import save_residual_plot
+        from .report.figures import residuals_figure
 
-        plot_path = save_residual_plot(solution, out_dir / f"{stem}.residuals.png")
+        plot_path = out_dir / f"{stem}.residuals.png"
+        atomic_write_bytes(plot_path, residuals_figure(solution).png())
     return Products(sol_path, lines_path, plot_path)

@@ -283,6 +283,11 @@ def _jsonable(value: Any) -> Any:
     return value
 
 
+_FLOAT_LINE_COLUMNS = frozenset(("x", "x_err", "fwhm", "flux", "snr", "line_wavelength",
+                                 "line_intensity", "wavelength_fit", "residual_px", "residual_nm",
+                                 "residual_kms"))
+
+
 def _float_or_nan(value: Any) -> float:
     return math.nan if value is None else float(value)
 
@@ -320,10 +325,9 @@ def load_solution(path: str | Path) -> Solution:
             fields = dict(data["model"])
             fields["distortion"] = tuple(fields.get("distortion", ()))
             model = GratingModel(**fields)
-        lines = pd.DataFrame({col: data["lines"][col] for col in LINE_COLUMNS})
-        for col in ("x", "x_err", "fwhm", "flux", "snr", "line_wavelength", "line_intensity",
-                    "wavelength_fit", "residual_px", "residual_nm", "residual_kms"):
-            lines[col] = lines[col].map(_float_or_nan).astype(float)
+        lines = pd.DataFrame({col: (np.array(data["lines"][col], dtype=float)  # None -> NaN
+                                    if col in _FLOAT_LINE_COLUMNS else data["lines"][col])
+                              for col in LINE_COLUMNS})
         cov = data.get("covariance")
         corr = data.get("correlation") or {}
         slit = data.get("slit")

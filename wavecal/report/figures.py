@@ -1,214 +1,371 @@
-"""The figures of a frame report and a night report (matplotlib, Agg, Okabe-Ito colours).
+"""The figures of a frame report and a night report, drawn on a
+:class:`~wavecal.report.canvas.Canvas` in the Okabe & Ito colour-blind-safe colours
+(Okabe & Ito 2008, "Color Universal Design").
 
-Every function returns a matplotlib Figure; :func:`png_bytes` renders and closes it.
+Every function returns a Canvas: ``canvas.png()`` gives the PNG bytes, and a notebook shows it
+inline.
 """
 from __future__ import annotations
 
-import io
 import math
 from pathlib import Path
 
+import contourpy
 import numpy as np
 import pandas as pd
+from matplotlib import colormaps
 
-from ..plots import PALETTE, residual_figure  # sets the Agg backend first
 from ..solution import Solution
-
-import matplotlib.pyplot as plt  # noqa: E402  (after the backend is chosen)
+from .canvas import Canvas, legend
+from .chart import Panel, clock_ticks, limits, nice_ticks, tick_labels
 
 __all__ = ["spectrum_figure", "residuals_figure", "quality_figure", "slit_figure",
-           "drift_figure", "arcs_figure", "png_bytes", "DPI"]
+           "drift_figure", "arcs_figure", "PALETTE"]
 
-#: Resolution of the report figures (dots per inch): readable, small and quick to render.
-DPI = 90
-#: Okabe & Ito colours (Okabe & Ito 2008) for the marks not in :data:`wavecal.plots.PALETTE`.
-_MORE = {"ghost": "#CC79A7", "unidentified": "#999999", "spectrum": "#000000",
-         "series": ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9",
-                    "#F0E442")}
-_FONT = {"font.size": 10, "axes.titlesize": 11, "axes.labelsize": 10}
+#: Okabe & Ito colours by role.
+PALETTE = {"used": "#0072B2", "rejected": "#D55E00", "blend": "#E69F00", "band": "#56B4E9",
+           "extrapolated": "#999999", "ghost": "#CC79A7", "unidentified": "#999999",
+           "spectrum": "#000000", "ok": "#0072B2", "suspect": "#E69F00", "failed": "#D55E00"}
+#: Colours of successive series (configurations) in the night figures.
+SERIES = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442")
+#: How each kind of peak is marked: (marker, colour, filled).
+PEAK_STYLES = {"used": ("v", PALETTE["used"], True), "rejected": ("D", PALETTE["rejected"], False),
+               "blend": ("^", PALETTE["blend"], False), "ghost": ("s", PALETTE["ghost"], False),
+               "unidentified": ("x", PALETTE["unidentified"], False)}
+_WIDTH = 1100
+_LABEL_SIZE = 10.0
 
 
 def _name(solution: Solution) -> str:
     return Path(solution.frame).name if solution.frame else "frame"
 
 
-def png_bytes(fig) -> bytes:
-    """Render ``fig`` as PNG bytes at :data:`DPI` and close it."""
-    buf = io.BytesIO()
-    try:
-        fig.savefig(buf, format="png", dpi=DPI)
-    finally:
-        plt.close(fig)
-    return buf.getvalue()
+def _column(lines: pd.DataFrame, name: str) -> np.ndarray:
+    column = lines[name]
+    if column.dtype.kind != "f":
+        column = pd.to_numeric(column, errors="coerce")
+    return column.to_numpy(dtype=float)
 
 
-def spectrum_figure(solution: Solution, spectrum: tuple[np.ndarray, np.ndarray] | None = None):
-    """The arc spectrum with every peak marked: used lines labelled with wavelength and
-    element, rejected lines, blends, ghosts and unidentified peaks each drawn distinctly.
+def _wavelength_ticks(solution: Solution, xlim: tuple[float, float]
+                      ) -> tuple[np.ndarray, list[str]] | None:
+    """Round wavelengths and where they fall in pixels, for a second scale along the top."""
+    if solution.model is None:
+        return None
+    px = np.linspace(xlim[0], xlim[1], 256)
+    lam = np.asarray(solution.wavelength(px), dtype=float)
+    if not np.all(np.isfinite(lam)):
+        return None
+    order = np.argsort(lam)
+    ticks = nice_ticks(float(lam.min()), float(lam.max()), 8)
+    return np.interp(ticks, lam[order], px[order]), tick_labels(ticks)
+
+
+def _spread_labels(x: np.ndarray, gap: float, lo: float, hi: float) -> np.ndarray:
+    """Nudge sorted label positions apart to at least ``gap`` pixels, staying in [lo, hi]."""
+    out = np.array(x, dtype=float)
+    for i in range(1, out.size):
+        out[i] = max(out[i], out[i - 1] + gap)
+    if out.size and out[-1] > hi:
+        out[-1] = hi
+        for i in range(out.size - 2, -1, -1):
+            out[i] = min(out[i], out[i + 1] - gap)
+    return np.clip(out, lo, hi)
+
+
+def spectrum_figure(solution: Solution, spectrum: tuple[np.ndarray, np.ndarray] | None = None
+                    ) -> Canvas:
+    """The arc spectrum (square-root scale, so faint and saturated lines both show) with every
+    peak marked: used lines labelled with wavelength and element, rejected lines, blends,
+    ghosts and unidentified peaks each drawn distinctly; a wavelength scale along the top.
 
     Without ``spectrum`` (``(x, flux)``) the peaks are drawn as sticks of their flux and the
     figure says so.
     """
-    with plt.rc_context(_FONT):
-        fig, ax = plt.subplots(figsize=(11, 4.2))
-        lines = solution.lines
-        if spectrum is not None:
-            x, flux = spectrum
-            ax.plot(x, flux, color=_MORE["spectrum"], lw=0.7, label="extracted spectrum")
-            height = np.interp(lines["x"].to_numpy(float), x, flux) if len(x) else np.zeros(0)
-            note = ""
+    canvas = Canvas(_WIDTH, 470)
+    lines = solution.lines
+    x_peak = _column(lines, "x")
+    if spectrum is not None and len(spectrum[0]):
+        xs, flux = (np.asarray(v, dtype=float) for v in spectrum)
+        height = np.interp(x_peak, xs, flux)
+    else:
+        xs = flux = None
+        height = _column(lines, "flux")
+    height = np.where(np.isfinite(height), height, 0.0)
+    n = solution.model.n_pixels if solution.model is not None else None
+    xlim = (0.0, n - 1.0) if n else limits(x_peak if xs is None else xs, pad=0.0)
+    top = max(float(np.nanmax(flux)) if flux is not None else 0.0,
+              float(height.max()) if height.size else 0.0, 1.0)
+    bottom = min(0.0, float(np.nanmin(flux)) if flux is not None else 0.0)
+    # the brightest peak sits at 55 % of the height (square-root scale): room for the labels
+    ylim = (bottom, (math.sqrt(top) / 0.55) ** 2)
+    wl_ticks = _wavelength_ticks(solution, xlim)
+    panel = Panel(canvas, (70, 88, _WIDTH - 15, 425), xlim, ylim, ysqrt=True)
+    if xs is not None:
+        panel.envelope(xs, flux, PALETTE["spectrum"], width=0.8)
+        note = ""
+    else:
+        panel.sticks(x_peak, 0.0, height, PALETTE["spectrum"])
+        note = " (spectrum not stored: peaks drawn as sticks)"
+    ident = lines["identification"].astype(str).to_numpy()
+    mark_y = panel.y(height) - 8.0
+    items = [({"line": PALETTE["spectrum"]}, "spectrum" if xs is not None else "peak flux")]
+    for kind, (marker, colour, filled) in PEAK_STYLES.items():
+        sel = ident == kind
+        if sel.any():
+            px, py = panel.x(x_peak[sel]), mark_y[sel]
+            keep = panel.inside(px, py)
+            canvas.markers(px[keep], py[keep], marker, colour, size=7.0, filled=filled)
+            items.append(({"marker": marker, "colour": colour, "filled": filled},
+                          f"{kind} ({int(sel.sum())})"))
+    lam = _column(lines, "line_wavelength")
+    labelled = np.flatnonzero(np.isin(ident, ("used", "rejected", "blend")) & np.isfinite(lam))
+    if labelled.size:
+        labelled = labelled[np.argsort(x_peak[labelled], kind="stable")]
+        want = panel.x(x_peak[labelled])
+        placed = _spread_labels(want, _LABEL_SIZE + 2, panel.left + 6, panel.right - 6)
+        for i, px, wx in zip(labelled, placed, want):
+            colour = PEAK_STYLES.get(ident[i], PEAK_STYLES["used"])[1]
+            base = mark_y[i] - 7.0
+            if not panel.inside(wx, base):
+                continue
+            if abs(px - wx) > 1.5:
+                canvas.segments(wx, base + 2, px, base - 6, colour, width=0.7)
+                base -= 8.0
+            canvas.text(px, base, f"{lam[i]:.2f} {lines['element'].iloc[i]}",
+                        size=_LABEL_SIZE, colour=colour, anchor="md", vertical=True)
+    panel.finish(xlabel="pixel along dispersion", ylabel="electrons per pixel (√ scale)",
+                 title=f"{_name(solution)}: arc spectrum, {solution.status.upper()}{note}",
+                 top_ticks=wl_ticks,
+                 top_label=f"wavelength ({solution.medium}, nm)" if wl_ticks else "")
+    legend(canvas, _WIDTH - 15, 10, items, size=11, align="right")
+    return canvas
+
+
+def _residual_limits(res: np.ndarray, err: np.ndarray, rms: float) -> float:
+    """Half-height of the residual axes: the used lines with their error bars, at least 4 RMS."""
+    reach = np.abs(res) + np.where(np.isfinite(err), err, 0.0)
+    reach = reach[np.isfinite(reach)]
+    half = max(float(reach.max()) * 1.15 if reach.size else 0.0,
+               4.0 * rms if math.isfinite(rms) else 0.0)
+    return half if half > 0 else 1.0
+
+
+def residuals_figure(solution: Solution) -> Canvas:
+    """Residuals (pixels) against pixel and against wavelength: used lines filled circles
+    with error bars, rejected lines open diamonds, blends triangles; the band is ±RMS; the
+    shaded regions are extrapolated (no line used there). Rejected lines beyond the axes are
+    drawn at its edge."""
+    canvas = Canvas(_WIDTH, 610)
+    boxes = ((80, 44, _WIDTH - 15, 275), (80, 338, _WIDTH - 15, 569))
+    title = f"{_name(solution)}: residuals, {solution.status.upper()}"
+    if solution.model is None:
+        for i, box in enumerate(boxes):
+            panel = Panel(canvas, box, (0.0, 1.0), (-1.0, 1.0))
+            panel.message("no solution: " + "; ".join(solution.reasons)[:150])
+            panel.finish(title=title if i == 0 else "", xtick_labels=False)
+        return canvas
+    lines = solution.lines
+    ident = lines["identification"].astype(str).to_numpy()
+    res, err = _column(lines, "residual_px"), _column(lines, "x_err")
+    rms = solution.rms_px
+    used = ident == "used"
+    half = _residual_limits(res[used], err[used], rms)
+    n = solution.model.n_pixels
+    lo, hi = solution.covered_range_px
+    wl_edges = np.asarray(solution.wavelength(np.array([0.0, lo, hi, n - 1.0])), dtype=float)
+    styles = (("used", "o", True), ("rejected", "D", False), ("blend", "^", False))
+    items = []
+    for kind, marker, filled in styles:
+        if (ident == kind).any():
+            items.append(({"marker": marker, "colour": PALETTE[kind], "filled": filled},
+                          f"{kind} ({int((ident == kind).sum())})"))
+    if math.isfinite(rms):
+        items.append(({"patch": PALETTE["band"], "alpha": 0.35}, f"±RMS = {rms:.3f} px"))
+    items.append(({"patch": PALETTE["extrapolated"], "alpha": 0.3}, "extrapolated"))
+    for i, (box, key, label) in enumerate(
+            ((boxes[0], "x", "pixel along dispersion"),
+             (boxes[1], "line_wavelength", f"wavelength ({solution.medium}, nm)"))):
+        xv = _column(lines, key)
+        if key == "x":
+            xlim, spans = (0.0, n - 1.0), ((0.0, lo), (hi, n - 1.0))
         else:
-            height = lines["flux"].to_numpy(float)
-            ax.vlines(lines["x"], 0.0, height, color=_MORE["spectrum"], lw=0.8,
-                      label="peak flux (stick)")
-            note = " (spectrum not stored: peaks drawn as sticks)"
-        height = np.where(np.isfinite(height), height, 0.0)
-        top = float(np.nanmax(height)) if height.size else 1.0
-        styles = (("used", "v", PALETTE["used"]), ("rejected", "D", PALETTE["rejected"]),
-                  ("blend", "^", PALETTE["blend"]), ("ghost", "s", _MORE["ghost"]),
-                  ("unidentified", "x", _MORE["unidentified"]))
-        ident = lines["identification"].astype(str).to_numpy()
-        for kind, marker, colour in styles:
-            sel = ident == kind
+            w = np.sort(wl_edges)
+            xlim, spans = (float(w[0]), float(w[3])), ((w[0], w[1]), (w[2], w[3]))
+        panel = Panel(canvas, box, xlim, (-half, half))
+        if all(math.isfinite(v) for v in (lo, hi)):
+            for a, b in spans:
+                panel.vspan(a, b, PALETTE["extrapolated"], alpha=0.2)
+        if math.isfinite(rms):
+            panel.hspan(-rms, rms, PALETTE["band"], alpha=0.3)
+        panel.hline(0.0, "#000000", width=0.8)
+        for kind, marker, filled in styles:
+            sel = (ident == kind) & np.isfinite(xv)
             if not sel.any():
                 continue
-            ax.plot(lines["x"].to_numpy(float)[sel], height[sel] + 0.04 * top, marker,
-                    color=colour, mfc=colour if kind == "used" else "none", ms=5, ls="none",
-                    label=f"{kind} ({int(sel.sum())})")
-        for xi, h, lam, el, kind in zip(lines["x"], height, lines["line_wavelength"],
-                                        lines["element"], ident):
-            if kind in ("used", "rejected", "blend") and isinstance(lam, float) and math.isfinite(lam):
-                ax.annotate(f"{lam:.2f} {el}", (xi, h + 0.08 * top), rotation=90, fontsize=7,
-                            ha="center", va="bottom",
-                            color=PALETTE["used"] if kind == "used" else PALETTE["rejected"])
-        ax.set_ylim(bottom=min(0.0, float(np.nanmin(height)) if height.size else 0.0),
-                    top=1.45 * top if top > 0 else 1.0)
-        if solution.model is not None:
-            ax.set_xlim(0, solution.model.n_pixels - 1)
-        ax.set_xlabel("pixel along dispersion")
-        ax.set_ylabel("electrons per pixel")
-        ax.set_title(f"{_name(solution)}: arc spectrum, {solution.status.upper()}{note}")
-        ax.legend(loc="upper right", fontsize=8, ncol=3, frameon=False)
-        ax.grid(alpha=0.3)
-        fig.subplots_adjust(left=0.07, right=0.98, bottom=0.13, top=0.92)
-    return fig
+            shown = np.clip(res[sel], -0.97 * half, 0.97 * half)
+            panel.errorbars(xv[sel], shown, err[sel], PALETTE[kind])
+            panel.points(xv[sel], shown, marker, PALETTE[kind], filled=filled)
+        panel.finish(xlabel=label, ylabel="observed − model (px)",
+                     title=title if i == 0 else "")
+    legend(canvas, _WIDTH - 15, 8, items, size=11, align="right")
+    return canvas
 
 
-def quality_figure(solution: Solution):
+def quality_figure(solution: Solution) -> Canvas:
     """Residual histogram, line FWHM and resolving power across the detector."""
-    with plt.rc_context(_FONT):
-        fig, axes = plt.subplots(1, 3, figsize=(11, 3.4))
-        lines = solution.lines
-        used = lines[lines["identification"] == "used"]
-        res = used["residual_px"].to_numpy(float)
-        res = res[np.isfinite(res)]
-        if res.size:
-            axes[0].hist(res, bins=max(5, min(30, res.size // 2)), color=PALETTE["used"])
-            rms = solution.rms_px
+    canvas = Canvas(_WIDTH, 360)
+    lines = solution.lines
+    ident = lines["identification"].astype(str).to_numpy()
+    used = ident == "used"
+    res = _column(lines, "residual_px")[used]
+    res = res[np.isfinite(res)]
+    boxes = ((70, 52, 370, 300), (440, 52, 740, 300), (810, 52, _WIDTH - 15, 300))
+    # histogram of the used residuals
+    if res.size:
+        edges = np.histogram_bin_edges(res, bins=max(5, min(30, res.size // 2)))
+        counts, edges = np.histogram(res, bins=edges)
+        rms = solution.rms_px
+        xr = limits(edges, pad=0.02, include=(-rms, rms) if math.isfinite(rms) else ())
+        panel = Panel(canvas, boxes[0], xr, (0.0, counts.max() * 1.15 + 0.5), yinteger=True)
+        centres, width = 0.5 * (edges[1:] + edges[:-1]), float(edges[1] - edges[0])
+        panel.bars(centres, counts, [PALETTE["used"]] * counts.size, width=0.92 * width)
+        if math.isfinite(rms):
             for s in (-rms, rms):
-                if math.isfinite(s):
-                    axes[0].axvline(s, color=PALETTE["rejected"], ls="--", lw=1)
-        else:
-            axes[0].text(0.5, 0.5, "no lines used", ha="center", transform=axes[0].transAxes)
-        axes[0].set_xlabel("residual of used lines (px)")
-        axes[0].set_ylabel("lines")
-        x, fwhm = lines["x"].to_numpy(float), lines["fwhm"].to_numpy(float)
-        is_used = (lines["identification"] == "used").to_numpy()
-        axes[1].plot(x[~is_used], fwhm[~is_used], "x", color=_MORE["unidentified"], ms=4,
-                     label="other peaks")
-        axes[1].plot(x[is_used], fwhm[is_used], "o", color=PALETTE["used"], ms=4,
-                     label="used lines")
-        axes[1].set_xlabel("pixel along dispersion")
-        axes[1].set_ylabel("FWHM (px)")
-        axes[1].legend(fontsize=8, frameon=False)
-        if solution.model is not None and x.size:
-            lam = solution.wavelength(x)
-            power = lam / (np.abs(solution.model.dispersion(x)) * fwhm)
-            axes[2].plot(x[is_used], power[is_used], "o", color=PALETTE["used"], ms=4)
-            axes[2].plot(x[~is_used], power[~is_used], "x", color=_MORE["unidentified"], ms=4)
-        else:
-            axes[2].text(0.5, 0.5, "no wavelength scale", ha="center",
-                         transform=axes[2].transAxes)
-        axes[2].set_xlabel("pixel along dispersion")
-        axes[2].set_ylabel("resolving power λ/Δλ")
-        for ax in axes:
-            ax.grid(alpha=0.3)
-        fig.subplots_adjust(left=0.06, right=0.99, bottom=0.16, top=0.95, wspace=0.3)
-    return fig
+                panel.vline(s, PALETTE["rejected"], width=1.2, dash=5)
+    else:
+        panel = Panel(canvas, boxes[0], (-1.0, 1.0), (0.0, 1.0))
+        panel.message("no lines used")
+    panel.finish(xlabel="residual of used lines (px)", ylabel="lines",
+                 title="residuals (dashed: ±RMS)")
+    # FWHM and resolving power across the detector
+    x, fwhm = _column(lines, "x"), _column(lines, "fwhm")
+    n = solution.model.n_pixels if solution.model is not None else None
+    xlim = (0.0, n - 1.0) if n else limits(x)
+    panel = Panel(canvas, boxes[1], xlim, limits(fwhm, include=(0.0,)))
+    panel.points(x[~used], fwhm[~used], "x", PALETTE["unidentified"], size=6)
+    panel.points(x[used], fwhm[used], "o", PALETTE["used"], size=6)
+    panel.finish(xlabel="pixel along dispersion", ylabel="FWHM (px)", title="line width")
+    if solution.model is not None and x.size:
+        lam = np.asarray(solution.wavelength(x), dtype=float)
+        power = lam / (np.abs(np.asarray(solution.model.dispersion(x), dtype=float)) * fwhm)
+        panel = Panel(canvas, boxes[2], xlim, limits(power, include=(0.0,)))
+        panel.points(x[~used], power[~used], "x", PALETTE["unidentified"], size=6)
+        panel.points(x[used], power[used], "o", PALETTE["used"], size=6)
+    else:
+        panel = Panel(canvas, boxes[2], xlim, (0.0, 1.0))
+        panel.message("no wavelength scale")
+    panel.finish(xlabel="pixel along dispersion", ylabel="λ/Δλ", title="resolving power")
+    legend(canvas, _WIDTH - 15, 8, [({"marker": "o", "colour": PALETTE["used"]}, "used lines"),
+                                    ({"marker": "x", "colour": PALETTE["unidentified"]},
+                                     "other peaks")], align="right")
+    return canvas
 
 
-def residuals_figure(solution: Solution):
-    """:func:`wavecal.plots.residual_figure` with fixed margins (quicker to render than its
-    constrained layout)."""
-    fig = residual_figure(solution)
-    fig.set_layout_engine("none")
-    fig.subplotpars.update(left=0.08, right=0.98, bottom=0.16, top=0.92, hspace=0.35)
-    for ax in fig.axes:
-        spec = ax.get_subplotspec()
-        if spec is not None:
-            ax.set_position(spec.get_position(fig))
-    return fig
-
-
-def slit_figure(solution: Solution):
-    """Map of the line shift Δ(x, y) along the slit (tilt and curvature), or None."""
+def slit_figure(solution: Solution) -> Canvas | None:
+    """Map of the line shift Δ(x, y) along the slit (tilt and curvature) with contours, or
+    None for a frame without a slit model."""
     slit = solution.slit
     if slit is None or solution.model is None:
         return None
-    with plt.rc_context(_FONT):
-        fig, ax = plt.subplots(figsize=(9, 3.6))
-        x = np.linspace(0.0, solution.model.n_pixels - 1.0, 120)
-        y = np.linspace(*slit.rows_covered, 60)
-        xx, yy = np.meshgrid(x, y)
-        shift = slit.shift(xx, yy)
-        mesh = ax.pcolormesh(xx, yy, shift, cmap="cividis", shading="auto")
-        ax.contour(xx, yy, shift, colors="white", linewidths=0.6)
-        fig.colorbar(mesh, ax=ax, label="line shift Δ (px)")
-        ax.axhline(slit.reference_row, color=PALETTE["rejected"], lw=1, ls="--",
-                   label="reference row")
-        ax.set_xlabel("pixel along dispersion")
-        ax.set_ylabel("row along slit")
-        ax.set_title(f"slit tilt/curvature map (fit RMS {slit.rms_px:.3f} px)")
-        ax.legend(loc="upper right", fontsize=8)
-        fig.subplots_adjust(left=0.08, right=1.0, bottom=0.15, top=0.9)
-    return fig
+    canvas = Canvas(_WIDTH, 380)
+    n = solution.model.n_pixels
+    x = np.linspace(0.0, n - 1.0, 220)
+    y = np.linspace(*slit.rows_covered, 80)
+    xx, yy = np.meshgrid(x, y)
+    shift = np.asarray(slit.shift(xx, yy), dtype=float)
+    lo, hi = limits(shift, pad=0.0)
+    cmap = colormaps["cividis"]
+    rgb = (cmap((shift - lo) / (hi - lo))[..., :3] * 255).astype(np.uint8)
+    panel = Panel(canvas, (80, 40, _WIDTH - 130, 320), (0.0, n - 1.0),
+                  (float(y[0]), float(y[-1])))
+    panel.raster(rgb, (0.0, n - 1.0, float(y[0]), float(y[-1])))
+    generator = contourpy.contour_generator(xx, yy, shift)
+    for level in nice_ticks(lo, hi, 8):
+        for seg in generator.lines(level):
+            panel.line(seg[:, 0], seg[:, 1], "#FFFFFF", width=0.8)
+    panel.hline(slit.reference_row, PALETTE["rejected"], width=1.3, dash=6)
+    panel.finish(xlabel="pixel along dispersion", ylabel="row along slit",
+                 title=f"slit tilt/curvature map: line shift Δ (fit RMS {slit.rms_px:.3f} px)")
+    bar = Panel(canvas, (_WIDTH - 95, 40, _WIDTH - 75, 320), (0.0, 1.0), (lo, hi),
+                xticks=((), ()))
+    bar.raster((cmap(np.linspace(0.0, 1.0, 128))[:, None, :3] * 255).astype(np.uint8),
+               (0.0, 1.0, lo, hi))
+    bar.finish(ytick_labels=False)
+    for t, text in zip(*_bar_ticks(lo, hi)):
+        canvas.text(_WIDTH - 70, float(bar.y(t)), text, size=11, anchor="lm")
+    canvas.text(_WIDTH - 85, 332, "Δ (px)", size=11, anchor="ma")
+    legend(canvas, _WIDTH - 130, 8, [({"line": PALETTE["rejected"], "dash": 6},
+                                      "reference row"), ({"line": "#777777"}, "contours")],
+           align="right")
+    return canvas
 
 
-def drift_figure(drift: pd.DataFrame):
+def _bar_ticks(lo: float, hi: float) -> tuple[np.ndarray, list[str]]:
+    t = nice_ticks(lo, hi, 6)
+    return t, tick_labels(t)
+
+
+def _hours(times: pd.Series, origin: pd.Timestamp) -> np.ndarray:
+    return ((times - origin) / pd.Timedelta(hours=1)).to_numpy(float)
+
+
+def drift_figure(drift: pd.DataFrame) -> Canvas:
     """Shift (px) of each configuration's arcs through the night, relative to its first arc."""
-    with plt.rc_context(_FONT):
-        fig, ax = plt.subplots(figsize=(9, 3.4))
-        if drift.empty:
-            ax.text(0.5, 0.5, "no usable arcs: no drift measured", ha="center",
-                    transform=ax.transAxes)
-        for i, (conf, grp) in enumerate(drift.groupby("configuration", sort=True)):
-            t = pd.to_datetime(grp["observation_time"], errors="coerce")
-            ax.plot(t, grp["shift_px"], "o-", color=_MORE["series"][i % 7], ms=5,
-                    label=str(conf))
-        ax.set_xlabel("observation time (UTC)")
-        ax.set_ylabel("shift vs first arc (px)")
-        ax.set_title("drift of each configuration")
-        ax.grid(alpha=0.3)
-        if not drift.empty:
-            ax.legend(fontsize=8, frameon=False)
-            fig.autofmt_xdate()
-        fig.subplots_adjust(left=0.09, right=0.98, bottom=0.25, top=0.9)
-    return fig
+    drift = drift.reset_index(drop=True)
+    canvas = Canvas(1000, 340, scale=2)
+    box = (80, 40, 985, 280)
+    times = pd.to_datetime(drift.get("observation_time", pd.Series(dtype=str)), errors="coerce",
+                           utc=True)
+    shifts = pd.to_numeric(drift.get("shift_px", pd.Series(dtype=float)), errors="coerce")
+    good = (times.notna() & shifts.notna()).to_numpy()
+    if not good.any():
+        panel = Panel(canvas, box, (0.0, 1.0), (-1.0, 1.0), xticks=((), ()))
+        panel.message("no usable arcs with observation times: no drift measured")
+        panel.finish(title="drift of each configuration", xtick_labels=False)
+        return canvas
+    origin = times[good].min().floor("D")
+    hours = _hours(times, origin)
+    xlim = limits(hours[good], pad=0.04)
+    ticks = clock_ticks(*xlim, lambda h: (origin + pd.Timedelta(hours=h)).strftime("%H:%M"))
+    panel = Panel(canvas, box, xlim, limits(shifts[good], include=(0.0,), pad=0.1),
+                  xticks=ticks)
+    panel.hline(0.0, "#000000", width=0.8)
+    items = []
+    for i, (conf, grp) in enumerate(drift[good].groupby("configuration", sort=True)):
+        colour = SERIES[i % len(SERIES)]
+        h = hours[grp.index.to_numpy()]
+        order = np.argsort(h)
+        s = shifts[grp.index].to_numpy(float)[order]
+        panel.line(h[order], s, colour, width=1.5)
+        panel.points(h[order], s, "o", colour, size=7)
+        items.append(({"marker": "o", "colour": colour}, str(conf)))
+    day = origin.strftime("%Y-%m-%d")
+    panel.finish(xlabel=f"observation time (UTC, from {day})", ylabel="shift vs first arc (px)",
+                 title="drift of each configuration")
+    legend(canvas, 985, 8, items, align="right")
+    return canvas
 
 
-def arcs_figure(arcs: pd.DataFrame):
-    """RMS (px) and number of lines used of every arc, in observation order."""
-    with plt.rc_context(_FONT):
-        fig, (a, b) = plt.subplots(1, 2, figsize=(11, 3.2))
-        idx = np.arange(len(arcs))
-        colours = [PALETTE["used"] if s == "ok" else PALETTE["blend"] if s == "suspect"
-                   else PALETTE["rejected"] for s in arcs.get("status", [])]
-        a.bar(idx, pd.to_numeric(arcs.get("rms_px"), errors="coerce"), color=colours)
-        a.set_ylabel("RMS (px)")
-        b.bar(idx, pd.to_numeric(arcs.get("n_used"), errors="coerce"), color=colours)
-        b.set_ylabel("lines used")
-        for ax in (a, b):
-            ax.set_xlabel("arc (observation order; blue ok, orange suspect, red failed)")
-            ax.grid(alpha=0.3, axis="y")
-        fig.subplots_adjust(left=0.07, right=0.99, bottom=0.17, top=0.95, wspace=0.25)
-    return fig
+def arcs_figure(arcs: pd.DataFrame) -> Canvas:
+    """RMS (px) and number of lines used of every arc, in observation order, coloured by
+    verdict."""
+    canvas = Canvas(_WIDTH, 320)
+    idx = np.arange(len(arcs), dtype=float)
+    status = [str(s) for s in arcs.get("status", [])]
+    colours = [PALETTE.get(s, PALETTE["failed"]) for s in status]
+    xlim = (-0.7, max(len(arcs), 1) - 0.3)
+    for box, key, label in (((70, 40, 530, 270), "rms_px", "RMS (px)"),
+                            ((610, 40, _WIDTH - 15, 270), "n_used", "lines used")):
+        values = pd.to_numeric(arcs.get(key, pd.Series(dtype=float)),
+                               errors="coerce").to_numpy(float)
+        panel = Panel(canvas, box, xlim, limits(values, include=(0.0,), pad=0.08),
+                      yinteger=key == "n_used")
+        if len(arcs):
+            panel.bars(idx, values, colours)
+        else:
+            panel.message("no arcs")
+        panel.finish(xlabel="arc (observation order)", ylabel=label)
+    items = [({"patch": PALETTE[s]}, s) for s in ("ok", "suspect", "failed")]
+    legend(canvas, _WIDTH - 15, 8, items, align="right")
+    return canvas

@@ -124,9 +124,8 @@ def _parameters_html(facts: dict[str, Any]) -> str:
 
 
 def _lines_html(solution: Solution) -> str:
-    lines = solution.lines
     rows, classes = [], []
-    for _, r in lines.iterrows():
+    for r in solution.lines.to_dict(orient="records"):
         rows.append((fmt(r["x"], ".2f"), fmt(r["x_err"], ".3f"), fmt(r["fwhm"], ".2f"),
                      fmt(r["snr"], ".0f"), esc(r["identification"]), esc(r["element"]),
                      fmt(r["line_wavelength"], ".4f"), fmt(r["residual_px"], "+.3f")))
@@ -166,7 +165,7 @@ def write_frame_report(solution: Solution, out_dir: str | Path, *,
     slit = figures.slit_figure(solution)
     if slit is not None:
         figs["slit"] = slit
-    pngs = {key: figures.png_bytes(fig) for key, fig in figs.items()}
+    pngs = {key: fig.png() for key, fig in figs.items()}
     captions = {"spectrum": "Arc spectrum and identified lines",
                 "residuals": "Residuals versus pixel and wavelength (shaded: extrapolated)",
                 "quality": "Residual histogram, line width and resolving power",

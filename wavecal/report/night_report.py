@@ -117,8 +117,8 @@ def write_night_report(night_dir: str | Path, *, frames: bool = True) -> NightRe
     ordered = ordered.sort_values(["_rank", "file"], kind="stable").drop(columns="_rank")
     counts = {str(k): int(v) for k, v in summary["status"].value_counts().sort_index().items()}
 
-    pngs = {"night_drift": figures.png_bytes(figures.drift_figure(drift)),
-            "night_arcs": figures.png_bytes(figures.arcs_figure(pd.DataFrame(arcs)))}
+    pngs = {"night_drift": figures.drift_figure(drift).png(),
+            "night_arcs": figures.arcs_figure(pd.DataFrame(arcs)).png()}
     rows, classes = [], []
     for _, r in ordered.iterrows():
         link = reports.get(r["file"], "")
