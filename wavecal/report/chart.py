@@ -148,10 +148,10 @@ class Panel:
             return yt, tick_labels(yt)
         lo, hi = sorted(self._ylim_t)
         values = []
-        for t in nice_ticks(lo, hi, 5):
+        for t in nice_ticks(lo, hi, 7):
             v = math.copysign(t * t, t)
-            if v != 0.0:
-                digits = 10 ** math.floor(math.log10(abs(v)))
+            if v != 0.0:  # two significant digits
+                digits = 10 ** (math.floor(math.log10(abs(v))) - 1)
                 v = round(v / digits) * digits
             if not values or v != values[-1]:
                 values.append(v)
