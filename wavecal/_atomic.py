@@ -30,15 +30,22 @@ def atomic_path(path: str | Path) -> Iterator[Path]:
             tmp_path.unlink()
 
 
-def atomic_write_bytes(path: str | Path, data: bytes) -> None:
-    """Write ``data`` to ``path`` atomically."""
+def atomic_write_bytes(path: str | Path, data: bytes, *, durable: bool = True) -> None:
+    """Write ``data`` to ``path`` atomically.
+
+    ``durable`` also flushes the data to the disk (fsync) before the rename, so that a power
+    cut cannot leave an empty file behind. Products that can be regenerated from others (the
+    QA reports) skip it: the rename alone still guarantees that a reader sees the old file or
+    the new one, never a part.
+    """
     with atomic_path(path) as tmp:
         with open(tmp, "wb") as fh:
             fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
+            if durable:
+                fh.flush()
+                os.fsync(fh.fileno())
 
 
-def atomic_write_text(path: str | Path, text: str) -> None:
-    """Write ``text`` (UTF-8) to ``path`` atomically."""
-    atomic_write_bytes(path, text.encode("utf-8"))
+def atomic_write_text(path: str | Path, text: str, *, durable: bool = True) -> None:
+    """Write ``text`` (UTF-8) to ``path`` atomically (see :func:`atomic_write_bytes`)."""
+    atomic_write_bytes(path, text.encode("utf-8"), durable=durable)

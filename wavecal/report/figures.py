@@ -151,13 +151,25 @@ def _residual_limits(res: np.ndarray, err: np.ndarray, rms: float) -> float:
     return half if half > 0 else 1.0
 
 
+def _off_scale(panel: Panel, x: np.ndarray, res: np.ndarray, half: float, colour: str) -> None:
+    """Residuals beyond the axes: an arrowhead at the edge pointing their way, and the value."""
+    for xi, r in zip(x.tolist(), res.tolist()):
+        edge = math.copysign(0.93 * half, r)
+        panel.points([xi], [edge], "^" if r > 0 else "v", colour, size=8)
+        px, py = float(panel.x(xi)), float(panel.y(edge)) + (9.0 if r > 0 else -9.0)
+        left = px < panel.right - 45  # the value to the right of the arrowhead if there is room
+        panel.canvas.text(px + 6 if left else px - 6, py, f"{r:+.2f}".replace("-", "\u2212"),
+                          size=10, colour=colour,
+                          anchor=("l" if left else "r") + ("a" if r > 0 else "d"))
+
+
 def residuals_figure(solution: Solution) -> Canvas:
     """Residuals (pixels) against pixel and against wavelength: used lines filled circles
     with error bars, rejected lines open diamonds, blends triangles; the band is ±RMS; the
-    shaded regions are extrapolated (no line used there). Rejected lines beyond the axes are
-    drawn at its edge."""
-    canvas = Canvas(_WIDTH, 610)
-    boxes = ((80, 44, _WIDTH - 15, 275), (80, 338, _WIDTH - 15, 569))
+    shaded regions are extrapolated (no line used there). Lines beyond the axes (the axes
+    follow the used lines) are arrowheads at the edge, with their residual written."""
+    canvas = Canvas(_WIDTH, 570)
+    boxes = ((80, 44, _WIDTH - 15, 255), (80, 318, _WIDTH - 15, 529))
     title = f"{_name(solution)}: residuals, {solution.status.upper()}"
     if solution.model is None:
         for i, box in enumerate(boxes):
@@ -200,12 +212,13 @@ def residuals_figure(solution: Solution) -> Canvas:
             panel.hspan(-rms, rms, PALETTE["band"], alpha=0.3)
         panel.hline(0.0, "#000000", width=0.8)
         for kind, marker, filled in styles:
-            sel = (ident == kind) & np.isfinite(xv)
+            sel = (ident == kind) & np.isfinite(xv) & np.isfinite(res)
             if not sel.any():
                 continue
-            shown = np.clip(res[sel], -0.97 * half, 0.97 * half)
-            panel.errorbars(xv[sel], shown, err[sel], PALETTE[kind])
-            panel.points(xv[sel], shown, marker, PALETTE[kind], filled=filled)
+            on = sel & (np.abs(res) <= 0.97 * half)
+            panel.errorbars(xv[on], res[on], err[on], PALETTE[kind])
+            panel.points(xv[on], res[on], marker, PALETTE[kind], filled=filled)
+            _off_scale(panel, xv[sel & ~on], res[sel & ~on], half, PALETTE[kind])
         panel.finish(xlabel=label, ylabel="observed − model (px)",
                      title=title if i == 0 else "")
     legend(canvas, _WIDTH - 15, 8, items, size=11, align="right")

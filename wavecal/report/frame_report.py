@@ -124,8 +124,12 @@ def _parameters_html(facts: dict[str, Any]) -> str:
 
 
 def _lines_html(solution: Solution) -> str:
+    lines = solution.lines
+    columns = ("x", "x_err", "fwhm", "snr", "identification", "element", "line_wavelength",
+               "residual_px")
     rows, classes = [], []
-    for r in solution.lines.to_dict(orient="records"):
+    for values in zip(*(lines[c].tolist() for c in columns)):
+        r = dict(zip(columns, values))
         rows.append((fmt(r["x"], ".2f"), fmt(r["x_err"], ".3f"), fmt(r["fwhm"], ".2f"),
                      fmt(r["snr"], ".0f"), esc(r["identification"]), esc(r["element"]),
                      fmt(r["line_wavelength"], ".4f"), fmt(r["residual_px"], "+.3f")))
@@ -180,12 +184,13 @@ def write_frame_report(solution: Solution, out_dir: str | Path, *,
     paths = []
     for key, png in pngs.items():
         path = out / f"{stem}.{key}.png"
-        atomic_write_bytes(path, png)
+        atomic_write_bytes(path, png, durable=False)
         paths.append(path)
     facts["figures"] = [p.name for p in paths]
     html_path, json_path = out / f"{stem}.report.html", out / f"{stem}.report.json"
-    atomic_write_text(json_path, json.dumps(_jsonable_tree(facts), indent=1, allow_nan=False) + "\n")
-    atomic_write_text(html_path, page(f"wavecal: {stem}", "\n".join(body)))
+    text = json.dumps(_jsonable_tree(facts), indent=1, allow_nan=False) + "\n"
+    atomic_write_text(json_path, text, durable=False)
+    atomic_write_text(html_path, page(f"wavecal: {stem}", "\n".join(body)), durable=False)
     return FrameReport(html=html_path, json=json_path, pngs=tuple(paths))
 
 

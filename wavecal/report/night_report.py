@@ -146,7 +146,7 @@ def write_night_report(night_dir: str | Path, *, frames: bool = True) -> NightRe
     png_paths = []
     for key, png in pngs.items():
         path = night / f"{key}.png"
-        atomic_write_bytes(path, png)
+        atomic_write_bytes(path, png, durable=False)
         png_paths.append(path)
     facts = {"schema": "wavecal-night-report", "schema_version": 1,
              "night": night.resolve().name, "counts": counts,
@@ -156,7 +156,9 @@ def write_night_report(night_dir: str | Path, *, frames: bool = True) -> NightRe
                        for r in drift.to_dict(orient="records")],
              "arcs": [{k: _jsonable(v) for k, v in a.items()} for a in arcs]}
     html_path, json_path = night / "night_report.html", night / "night_report.json"
-    atomic_write_text(json_path, json.dumps(facts, indent=1, allow_nan=False) + "\n")
-    atomic_write_text(html_path, page(f"wavecal night {night.resolve().name}", "\n".join(body)))
+    atomic_write_text(json_path, json.dumps(facts, indent=1, allow_nan=False) + "\n",
+                      durable=False)
+    atomic_write_text(html_path, page(f"wavecal night {night.resolve().name}", "\n".join(body)),
+                      durable=False)
     return NightReport(html=html_path, json=json_path, pngs=tuple(png_paths),
                        frames=tuple(written))
