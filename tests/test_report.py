@@ -110,3 +110,27 @@ def test_night_report_orders_failed_first(tmp_path):
         assert (tmp_path / "out" / link).is_file()
     good_arcs = [a for a in facts["arcs"] if a["status"] in ("ok", "suspect")]
     assert good_arcs and all(a["report"] and a["n_used"] > 0 for a in good_arcs)
+
+
+def test_night_page_puts_problems_first_and_never_prints_nan(tmp_path):
+    from wavecal.night import run_night
+    from wavecal.night.synthetic import make_night
+    make = make_night(tmp_path / "raw", n_arcs=2, n_science=1, n_bias=1, n_flats=0)
+    run_night(tmp_path / "raw", make.profile, tmp_path / "out", reports=False)
+    text = write_night_report(tmp_path / "out", frames=False).html.read_text()
+    assert not re.search(r">\s*nan\s*<", text, flags=re.IGNORECASE)  # missing values are blank
+    assert "-0.000" not in text
+    attention = text.index("Needs attention")
+    first_plot = text.index("data:image/png")
+    failed = text.index('class="failed"')
+    assert attention < failed < first_plot  # a failed file is listed before the figures
+
+
+def test_peak_flags_are_written_out(calibration, tmp_path):
+    from wavecal.peaks import PeakFlag
+    sol = calibration.solution
+    lines = sol.lines.copy()
+    lines.loc[lines.index[0], "flags"] = int(PeakFlag.SATURATED) | int(PeakFlag.EDGE)
+    rep = write_frame_report(replace(sol, lines=lines), tmp_path, stem="flagged")
+    text = rep.html.read_text()
+    assert "SATURATED, EDGE" in text

@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 
 from .._atomic import atomic_write_bytes, atomic_write_text
+from ..peaks import describe_flags
 from ..solution import Solution, _jsonable
 from . import figures
 from .html import esc, fmt, image, page, status_badge, table
@@ -125,17 +126,19 @@ def _parameters_html(facts: dict[str, Any]) -> str:
 
 def _lines_html(solution: Solution) -> str:
     lines = solution.lines
-    columns = ("x", "x_err", "fwhm", "snr", "identification", "element", "line_wavelength",
-               "residual_px")
+    columns = ("x", "x_err", "fwhm", "snr", "flags", "identification", "element",
+               "line_wavelength", "residual_px")
     rows, classes = [], []
     for values in zip(*(lines[c].tolist() for c in columns)):
         r = dict(zip(columns, values))
+        flags = ", ".join(describe_flags(int(r["flags"]))) if r["flags"] == r["flags"] else ""
         rows.append((fmt(r["x"], ".2f"), fmt(r["x_err"], ".3f"), fmt(r["fwhm"], ".2f"),
-                     fmt(r["snr"], ".0f"), esc(r["identification"]), esc(r["element"]),
-                     fmt(r["line_wavelength"], ".4f"), fmt(r["residual_px"], "+.3f")))
+                     fmt(r["snr"], ".0f"), esc(flags), esc(r["identification"]),
+                     esc(r["element"]), fmt(r["line_wavelength"], ".4f"),
+                     fmt(r["residual_px"], "+.3f")))
         ident = str(r["identification"])
         classes.append("" if ident == "used" else "failed" if ident == "rejected" else "skipped")
-    return table(("x (px)", "σx", "FWHM", "S/N", "identification", "element",
+    return table(("x (px)", "σx", "FWHM", "S/N", "flags", "identification", "element",
                   "wavelength (nm)", "residual (px)"), rows, row_classes=classes)
 
 

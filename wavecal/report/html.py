@@ -33,8 +33,10 @@ window.addEventListener("load", function () {
 
 
 def esc(value: Any) -> str:
-    """``value`` as text with ``& < > " '`` escaped."""
-    return html.escape("" if value is None else str(value), quote=True)
+    """``value`` as text with ``& < > " '`` escaped; a missing value (None, NaN) is blank."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    return html.escape(str(value), quote=True)
 
 
 def fmt(value: Any, spec: str = ".4g") -> str:
@@ -42,12 +44,17 @@ def fmt(value: Any, spec: str = ".4g") -> str:
     if value is None:
         return "—"
     if isinstance(value, (int, float)) and not isinstance(value, bool):
-        return "—" if isinstance(value, float) and not math.isfinite(value) else format(value, spec)
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        return esc(value)
-    return "—" if not math.isfinite(number) else format(number, spec)
+        number = value
+    else:
+        try:
+            number = float(value)
+        except (TypeError, ValueError):
+            return esc(value)
+    if isinstance(number, float) and not math.isfinite(number):
+        return "—"
+    text = format(number, spec)
+    # no "-0.000": a value that rounds to zero has no sign
+    return text.replace("-", "+", 1) if text.startswith("-") and float(text) == 0 else text
 
 
 def status_badge(status: str) -> str:

@@ -132,17 +132,24 @@ def write_night_report(night_dir: str | Path, *, frames: bool = True) -> NightRe
                  fmt(a["n_rejected"], "g"),
                  f'<a href="{esc(a["report"])}">report</a>' if a["report"] else "")
                 for a in arcs]
-    headline = ", ".join(f"{n} {esc(s)}" for s, n in counts.items())
+    headline = " ".join(f"{status_badge(s)} {n}" for s, n in sorted(
+        counts.items(), key=lambda item: rank.get(item[0], len(rank))))
+    attention = [i for i, c in enumerate(classes) if c in ("failed", "suspect")]
+    file_header = ("file", "kind", "configuration", "status", "reason", "RMS (px)", "drift (px)",
+                   "frame report")
     body = [f"<h1>Night report: {esc(night.resolve().name)}</h1>",
-            f"<p>{len(summary)} files: {headline}.</p>",
-            "<h2>Every input file (failed and suspect first)</h2>",
-            table(("file", "kind", "configuration", "status", "reason", "RMS (px)",
-                   "drift (px)", "frame report"), rows, row_classes=classes),
+            f"<p>{len(summary)} files: {headline}</p>",
+            "<h2>Needs attention</h2>",
+            (table(file_header, [rows[i] for i in attention],
+                   row_classes=[classes[i] for i in attention]) if attention
+             else '<p class="note">Nothing: every file was calibrated or used.</p>'),
             "<h2>Drift of each configuration</h2>", image(pngs["night_drift"], "drift"),
             "<h2>Arcs: RMS and line counts</h2>", image(pngs["night_arcs"], "arc quality"),
             table(("arc", "configuration", "time", "status", "RMS (px)", "lines used",
                    "rejected", "frame report"), arc_rows,
-                  row_classes=[str(a["status"]) for a in arcs])]
+                  row_classes=[str(a["status"]) for a in arcs]),
+            "<h2>Every input file (failed and suspect first)</h2>",
+            table(file_header, rows, row_classes=classes)]
     png_paths = []
     for key, png in pngs.items():
         path = night / f"{key}.png"
