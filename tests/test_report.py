@@ -134,3 +134,16 @@ def test_peak_flags_are_written_out(calibration, tmp_path):
     rep = write_frame_report(replace(sol, lines=lines), tmp_path, stem="flagged")
     text = rep.html.read_text()
     assert "SATURATED, EDGE" in text
+
+
+def test_slit_map_says_when_the_lines_do_not_shift(calibration):
+    import numpy as np
+
+    from wavecal.report.figures import slit_figure
+    sol = calibration.solution  # simulated with a 0.8 degree tilt and 0.4 px curvature
+    flat = replace(sol, slit=replace(sol.slit, coefficients=np.zeros((1, 0))))
+    centre = (180, (80 + 1100 - 130) // 2)  # middle of the map panel (row, column)
+    tilted_px = np.asarray(slit_figure(sol).image())[centre]
+    flat_px = np.asarray(slit_figure(flat).image())[centre]
+    assert tuple(flat_px) == (255, 255, 255)  # the white label of the note
+    assert tuple(tilted_px) != (255, 255, 255)  # the colour map itself

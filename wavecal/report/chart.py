@@ -13,7 +13,7 @@ from collections.abc import Callable, Sequence
 import numpy as np
 from matplotlib.ticker import MaxNLocator
 
-from .canvas import Canvas
+from .canvas import Canvas, text_width
 
 __all__ = ["Panel", "nice_ticks", "tick_labels", "limits", "clock_ticks"]
 
@@ -245,9 +245,13 @@ class Panel:
                            float(self._cx(self.x(x1))), float(self._cy(self.y(y1))))
 
     def message(self, text: str) -> None:
-        """A note in the middle of the box (for empty or failed plots)."""
-        self.canvas.text((self.left + self.right) / 2, (self.top + self.bottom) / 2, text,
-                         size=12, colour="#555555", anchor="mm")
+        """A note on a white label in the middle of the box (for empty, failed or flat
+        plots)."""
+        cx, cy = (self.left + self.right) / 2, (self.top + self.bottom) / 2
+        half = text_width(text, 12) / 2 + 8
+        self.canvas.rect(max(self.left, cx - half), cy - 13, min(self.right, cx + half), cy + 13,
+                         fill="#FFFFFF", outline="#999999")
+        self.canvas.text(cx, cy, text, size=12, colour="#333333", anchor="mm")
 
     # -- frame and labels -----------------------------------------------------------------------
     def finish(self, *, xlabel: str = "", ylabel: str = "", title: str = "",

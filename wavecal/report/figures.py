@@ -33,6 +33,8 @@ PEAK_STYLES = {"used": ("v", PALETTE["used"], True), "rejected": ("D", PALETTE["
                "blend": ("^", PALETTE["blend"], False), "ghost": ("s", PALETTE["ghost"], False),
                "unidentified": ("x", PALETTE["unidentified"], False)}
 _WIDTH = 1100
+#: Below this spread of the line shift over the slit (px) the slit map says it is flat.
+FLAT_SLIT_PX = 0.01
 _LABEL_SIZE = 10.0
 
 
@@ -298,6 +300,10 @@ def slit_figure(solution: Solution) -> Canvas | None:
         for seg in generator.lines(level):
             panel.line(seg[:, 0], seg[:, 1], "#FFFFFF", width=0.8)
     panel.hline(slit.reference_row, PALETTE["rejected"], width=1.3, dash=6)
+    spread = float(np.nanmax(shift) - np.nanmin(shift)) if np.isfinite(shift).any() else 0.0
+    if spread < FLAT_SLIT_PX:
+        panel.message(f"the lines shift by less than {FLAT_SLIT_PX} px over the slit: "
+                      "no measurable tilt or curvature")
     panel.finish(xlabel="pixel along dispersion", ylabel="row along slit",
                  title=f"slit tilt/curvature map: line shift Δ (fit RMS {slit.rms_px:.3f} px)")
     bar = Panel(canvas, (_WIDTH - 95, 40, _WIDTH - 75, 320), (0.0, 1.0), (lo, hi),
