@@ -147,3 +147,11 @@ def test_slit_map_says_when_the_lines_do_not_shift(calibration):
     flat_px = np.asarray(slit_figure(flat).image())[centre]
     assert tuple(flat_px) == (255, 255, 255)  # the white label of the note
     assert tuple(tilted_px) != (255, 255, 255)  # the colour map itself
+
+
+def test_numbers_that_round_to_zero_have_no_minus_sign():
+    from wavecal.report.html import fmt
+    assert fmt(-0.00001, ".3f") == "0.000"
+    assert fmt(-0.00001, "+.3f") == "+0.000"
+    assert fmt(-0.5, "+.3f") == "-0.500"
+    assert fmt(float("nan"), ".3f") == "—"

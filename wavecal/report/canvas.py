@@ -277,9 +277,9 @@ class Canvas:
 
 
 def legend(canvas: Canvas, x: float, y: float, items: Sequence[tuple[dict, str]], *,
-           size: float = 11.0, align: str = "left") -> float:
+           size: float = 11.0, align: str = "left") -> None:
     """Draw a one-row legend with its top edge at ``y``, starting at ``x`` (``align="left"``)
-    or ending there (``align="right"``). Returns its width.
+    or ending there (``align="right"``).
 
     Each item is ``(glyph, label)``; ``glyph`` has ``marker`` (shape), ``line`` or ``patch``
     (a colour), plus ``colour``, ``filled``, ``alpha``.
@@ -302,4 +302,3 @@ def legend(canvas: Canvas, x: float, y: float, items: Sequence[tuple[dict, str]]
                             width=glyph.get("width", 1.5), dash=glyph.get("dash"))
         canvas.text(pos + sample + 5, mid, label, size=size, anchor="lm")
         pos += w + gap
-    return total

@@ -32,7 +32,7 @@ def limits(values, *, pad: float = 0.05, include: Sequence[float] = ()) -> tuple
         return 0.0, 1.0
     lo, hi = float(v.min()), float(v.max())
     if hi - lo <= 1e-12 * max(1.0, abs(hi)):
-        half = 0.5 * max(abs(hi), 1.0) * 0.1 or 0.5
+        half = 0.05 * max(abs(hi), 1.0)
         return lo - half, hi + half
     span = hi - lo
     return lo - pad * span, hi + pad * span
@@ -256,11 +256,12 @@ class Panel:
     # -- frame and labels -----------------------------------------------------------------------
     def finish(self, *, xlabel: str = "", ylabel: str = "", title: str = "",
                top_ticks: tuple[Sequence[float], Sequence[str]] | None = None,
-               top_label: str = "", xtick_labels: bool = True, ytick_labels: bool = True
+               top_label: str = "", xtick_labels: bool = True, ytick_side: str = "left"
                ) -> None:
         """Draw the frame, ticks and labels.
 
-        ``top_ticks`` (x data positions, labels) adds a second scale along the top edge.
+        ``top_ticks`` (x data positions, labels) adds a second scale along the top edge;
+        ``ytick_side="right"`` puts the y scale on the right (a colour bar).
         """
         c = self.canvas
         c.rect(self.left, self.top, self.right, self.bottom, outline=_FRAME, width=1.0)
@@ -272,12 +273,12 @@ class Panel:
                 c.text(float(p), self.bottom + 6, text, size=11, anchor="ma")
         yt, yl = self._yticks
         py = self.y(yt)
-        c.segments(self.left - 4, py, self.left, py, _FRAME)
-        widest = 0.0
-        if ytick_labels:
-            for p, text in zip(py, yl):
-                c.text(self.left - 6, float(p), text, size=11, anchor="rm")
-                widest = max(widest, len(text))
+        edge, out = (self.left, -1.0) if ytick_side == "left" else (self.right, 1.0)
+        c.segments(edge, py, edge + 4 * out, py, _FRAME)
+        for p, text in zip(py, yl):
+            c.text(edge + 6 * out, float(p), text, size=11,
+                   anchor="rm" if ytick_side == "left" else "lm")
+        widest = max((len(t) for t in yl), default=0) if ytick_side == "left" else 0
         if xlabel:
             c.text((self.left + self.right) / 2, self.bottom + (24 if xtick_labels else 8),
                    xlabel, size=12, anchor="ma")

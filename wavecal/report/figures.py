@@ -310,19 +310,12 @@ def slit_figure(solution: Solution) -> Canvas | None:
                 xticks=((), ()))
     bar.raster((cmap(np.linspace(0.0, 1.0, 128))[:, None, :3] * 255).astype(np.uint8),
                (0.0, 1.0, lo, hi))
-    bar.finish(ytick_labels=False)
-    for t, text in zip(*_bar_ticks(lo, hi)):
-        canvas.text(_WIDTH - 70, float(bar.y(t)), text, size=11, anchor="lm")
+    bar.finish(ytick_side="right")
     canvas.text(_WIDTH - 85, 332, "Δ (px)", size=11, anchor="ma")
     legend(canvas, _WIDTH - 130, 8, [({"line": PALETTE["rejected"], "dash": 6},
                                       "reference row"), ({"line": "#777777"}, "contours")],
            align="right")
     return canvas
-
-
-def _bar_ticks(lo: float, hi: float) -> tuple[np.ndarray, list[str]]:
-    t = nice_ticks(lo, hi, 6)
-    return t, tick_labels(t)
 
 
 def _hours(times: pd.Series, origin: pd.Timestamp) -> np.ndarray:

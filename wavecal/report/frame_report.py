@@ -131,7 +131,8 @@ def _lines_html(solution: Solution) -> str:
     rows, classes = [], []
     for values in zip(*(lines[c].tolist() for c in columns)):
         r = dict(zip(columns, values))
-        flags = ", ".join(describe_flags(int(r["flags"]))) if r["flags"] == r["flags"] else ""
+        known = math.isfinite(float(r["flags"]))
+        flags = ", ".join(describe_flags(int(r["flags"]))) if known else ""
         rows.append((fmt(r["x"], ".2f"), fmt(r["x_err"], ".3f"), fmt(r["fwhm"], ".2f"),
                      fmt(r["snr"], ".0f"), esc(flags), esc(r["identification"]),
                      esc(r["element"]), fmt(r["line_wavelength"], ".4f"),

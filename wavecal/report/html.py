@@ -53,8 +53,8 @@ def fmt(value: Any, spec: str = ".4g") -> str:
     if isinstance(number, float) and not math.isfinite(number):
         return "—"
     text = format(number, spec)
-    # no "-0.000": a value that rounds to zero has no sign
-    return text.replace("-", "+", 1) if text.startswith("-") and float(text) == 0 else text
+    # no "-0.000": a value that rounds to zero is written as zero
+    return format(0.0, spec) if float(text) == 0 else text
 
 
 def status_badge(status: str) -> str:
