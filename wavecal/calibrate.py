@@ -17,11 +17,12 @@ import pandas as pd
 
 from . import __version__
 from .extract import Spectrum, extract_spectrum
+from .features import ResolvedLines, resolve_lines
 from .fit import PHYSICAL_PARAMETERS, FitResult, fit_lines, wavelength_sigma
 from .frames import Frame, read_frame
 from .linelists import LineList, load_line_list
 from .match import (Identification, associate, blend_distance_px, chance_log10_probability,
-                    identify_lines)
+                    coincidence_probabilities, identify_lines)
 from .model_setup import PriorBox, nominal_model, prior_box
 from .optics import GratingModel
 from .peaks import PeakFlag, PeakTable, find_peaks
@@ -33,9 +34,6 @@ from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 __all__ = ["calibrate_frame", "Calibration", "LINE_UNCERTAINTY_VERIFIED_NM",
            "LINE_UNCERTAINTY_UNVERIFIED_NM"]
 
-#: Peak-finder flags marking a line that is probably two unresolved lines: identified, not fitted.
-_UNRESOLVED_FLAGS = int(PeakFlag.ODD_WIDTH | PeakFlag.POOR_FIT)
-
 #: Leave-one-out residual (pixels) below which a used line counts as confirmed by the others
 #: (or five times its uncertainty, if larger).
 CONFIRM_PX = 0.3
@@ -44,10 +42,6 @@ _MAX_UNCONFIRMED = 4
 
 #: Smallest window (pixels) assumed for chance coincidences in the significance test.
 _MIN_CHANCE_WINDOW_PX = 0.1
-
-#: A peak more than this many times wider than the typical line is taken as unresolved lines,
-#: however uncertain its width.
-_MAX_WIDTH_RATIO = 2.0
 
 #: Wavelength uncertainty given to line-list values checked against NIST (nm).
 LINE_UNCERTAINTY_VERIFIED_NM = 0.0005
@@ -144,18 +138,19 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         spectrum, peaks = slit.spectrum, slit.peaks
     line_list = load_line_list(lamps, medium=profile.medium)
     lo, hi = _reachable_range(nominal, box)
-    in_range = line_list.in_range(lo, hi)
 
     table = peaks.table
     x = table["x"].to_numpy(float)
     fwhm = float(peaks.fwhm_typical) if np.isfinite(peaks.fwhm_typical) else 3.0
-    ident = identify_lines(nominal, box, x, in_range.wavelength_nm, intensity=in_range.intensity,
+    features = resolve_lines(line_list.in_range(lo, hi), nominal, fwhm)
+    ident = identify_lines(nominal, box, x, features.lines.wavelength_nm,
+                           intensity=features.lines.intensity,
                            vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
     fit = None
     if ident.best is None:
         solution = _failed(profile, frame, lamps, table, ident.notes or ("no identification",))
     else:
-        solution, fit = _fit_and_judge(profile, frame, lamps, table, in_range, line_list,
+        solution, fit = _fit_and_judge(profile, frame, lamps, table, features, line_list,
                                        ident, box, fwhm, free_grooves,
                                        slit.shift if slit is not None else None)
     if details:
@@ -174,36 +169,62 @@ def _reachable_range(model: GratingModel, box: PriorBox) -> tuple[float, float]:
     return float(np.nanmin(lams)), float(np.nanmax(lams))
 
 
-def _line_sigma(lines: LineList) -> np.ndarray:
-    return np.where(lines.verified, LINE_UNCERTAINTY_VERIFIED_NM, LINE_UNCERTAINTY_UNVERIFIED_NM)
+def _line_sigma(features: ResolvedLines) -> np.ndarray:
+    """Wavelength uncertainty of each feature: the list's own, and that of a merged centre."""
+    listed = np.where(features.lines.verified, LINE_UNCERTAINTY_VERIFIED_NM,
+                      LINE_UNCERTAINTY_UNVERIFIED_NM)
+    return np.hypot(listed, features.sigma_nm)
 
 
-def _converge(model, box, x, x_err, lines: LineList, assoc, tolerance, unresolved, fwhm,
-              free_grooves):
+def _centre_sigma(table: pd.DataFrame, fwhm: float) -> np.ndarray:
+    """Peak-centre uncertainties, inflated for peaks that may be two unresolved lines.
+
+    A peak wider than the typical line (or poorly fitted by one profile) is kept, with its
+    centre uncertain by half its excess width (a quarter of its width for a poor fit): roughly
+    how far an unseen companion could pull it.
+    """
+    x_err = table["x_err"].to_numpy(float)
+    width = table["fwhm"].to_numpy(float)
+    flags = table["flags"].to_numpy(int)
+    excess = np.where((flags & int(PeakFlag.ODD_WIDTH)) != 0,
+                      0.5 * np.abs(np.nan_to_num(width, nan=fwhm) - fwhm), 0.0)
+    poor = np.where((flags & int(PeakFlag.POOR_FIT)) != 0, 0.25 * np.nan_to_num(width, nan=fwhm), 0.0)
+    sigma = np.sqrt(np.nan_to_num(x_err, nan=fwhm) ** 2 + excess**2 + poor**2)
+    return np.maximum(sigma, 1e-4)
+
+
+def _converge(model, box, x, x_err, lam, lam_err, assoc, tolerance, fwhm, free_grooves,
+              intensity):
     """Alternate fit and re-association until the identification is stable.
 
-    Returns the last fit, the association it was made on, that association's tolerance and
-    the pairs kept out of the fit (blends), or ``(None, ...)`` when too few lines remain.
+    Crowded pairs (a listed neighbour within the blend distance) are fitted with their
+    wavelength uncertainty widened by a tenth of the line width. Returns the last fit, the
+    association it was made on and that association's tolerance, or ``(None, ...)`` when too
+    few lines remain.
     """
-    lam, lam_err = lines.wavelength_nm, _line_sigma(lines)
     fit, fitted, fitted_tol = None, assoc, tolerance
     for _ in range(4):
-        excluded = assoc.crowded | unresolved[assoc.peak]
-        if np.count_nonzero(~excluded) < 3:
+        if len(assoc) < 3:
             break
         fit = fit_lines(model, box, x[assoc.peak], x_err[assoc.peak], lam[assoc.line],
-                        lam_err[assoc.line], fit_mask=~excluded, free_grooves=free_grooves)
+                        _crowded_sigma(model, x[assoc.peak], lam_err[assoc.line], assoc.crowded,
+                                       fwhm), free_grooves=free_grooves)
         model, fitted, fitted_tol = fit.model, assoc, tolerance
         tolerance = float(np.clip(5.0 * fit.rms_px, 0.3, tolerance))
         new = associate(model, x, lam, tolerance, blend_px=blend_distance_px(fwhm),
-                        intensity=lines.intensity)
+                        intensity=intensity)
         if np.array_equal(new.peak, assoc.peak) and np.array_equal(new.line, assoc.line):
             break
         assoc = new
-    return fit, fitted, fitted_tol, fitted.crowded | unresolved[fitted.peak]
+    return fit, fitted, fitted_tol
 
 
-def _confirm(fit: FitResult, box, x, x_err, lam, lam_err, excluded, free_grooves):
+def _crowded_sigma(model, x, lam_err, crowded, fwhm) -> np.ndarray:
+    """Wavelength uncertainties with crowded pairs' widened by a tenth of the line width."""
+    return np.where(crowded, np.hypot(lam_err, 0.1 * fwhm * np.abs(model.dispersion(x))), lam_err)
+
+
+def _confirm(fit: FitResult, box, x, x_err, lam, lam_err, free_grooves):
     """Drop, one at a time, used lines that the other lines do not confirm.
 
     A line is confirmed when its leave-one-out residual is within
@@ -221,38 +242,38 @@ def _confirm(fit: FitResult, box, x, x_err, lam, lam_err, excluded, free_grooves
         if ratio[worst] <= 1.0 or fit.n_used <= MIN_LINES_FAILED:
             break
         unconfirmed[worst] = True
-        fit = fit_lines(fit.model, box, x, x_err, lam, lam_err, fit_mask=~excluded & ~unconfirmed,
+        fit = fit_lines(fit.model, box, x, x_err, lam, lam_err, fit_mask=~unconfirmed,
                         free_grooves=free_grooves)
     return fit, unconfirmed
 
 
-def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: LineList,
+def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_list: LineList,
                    ident: Identification, box: PriorBox, fwhm: float, free_grooves: bool,
                    slit: SlitShift | None):
+    lines = features.lines
     x = table["x"].to_numpy(float)
-    x_err = table["x_err"].to_numpy(float)
+    x_err = _centre_sigma(table, fwhm)
     lam = lines.wavelength_nm
-    lam_err = _line_sigma(lines)
-    unresolved = ((table["flags"].to_numpy(int) & _UNRESOLVED_FLAGS) != 0) | (
-        table["fwhm"].to_numpy(float) > _MAX_WIDTH_RATIO * fwhm)
-    fit, fitted, tolerance, crowded = _converge(
-        ident.best.model, box, x, x_err, lines, ident.best.association,
-        ident.best.tolerance_px, unresolved, fwhm, free_grooves)
+    lam_err = _line_sigma(features)
+    fit, fitted, tolerance = _converge(
+        ident.best.model, box, x, x_err, lam, lam_err, ident.best.association,
+        ident.best.tolerance_px, fwhm, free_grooves, lines.intensity)
     if fit is None:
-        return _failed(profile, frame, lamps, table, ("too few unblended lines identified",)), None
+        return _failed(profile, frame, lamps, table, ("too few lines identified",)), None
+    crowded = fitted.crowded
     pairs_peak, pairs_line = fitted.peak, fitted.line
+    pair_lam_err = _crowded_sigma(fit.model, x[pairs_peak], lam_err[pairs_line], crowded, fwhm)
     fit, unconfirmed = _confirm(fit, box, x[pairs_peak], x_err[pairs_peak], lam[pairs_line],
-                                lam_err[pairs_line], crowded, free_grooves)
+                                pair_lam_err, free_grooves)
     model = fit.model
 
     used_peaks = pairs_peak[fit.used]
-    density = max(np.count_nonzero((model.pixel(lam) >= 0) & (model.pixel(lam) <= model.n_pixels - 1)), 1) \
-        / model.n_pixels
     # the window that chance coincidences would have had to hit: the association tolerance, or
     # four times the residual RMS when the lines sit much closer than that (never below 0.1 px)
     window = float(np.clip(4.0 * fit.rms_px, _MIN_CHANCE_WINDOW_PX, tolerance))
-    log10_chance = chance_log10_probability(len(pairs_peak), x.size, density, window,
-                                            n_free=2 + max(fit.distortion_degree - 2, 0))
+    log10_chance = chance_log10_probability(
+        len(pairs_peak), coincidence_probabilities(model, x, lam, window),
+        n_free=2 + max(fit.distortion_degree - 2, 0))
     priors = box.as_dict()
     shifts = {n: (getattr(model, n) - priors[n][0]) / priors[n][1] for n in PHYSICAL_PARAMETERS}
     runner = ident.runner_up
@@ -267,7 +288,7 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
         max_sigma_px=float(np.nanmax(sigma_px, initial=0.0)), effective_geometry=box.effective))
 
     lines_df = _line_table(table, model, lines, full_list, pairs_peak, pairs_line, fit.used,
-                           crowded, unconfirmed, fwhm)
+                           unconfirmed, fwhm)
     used_lam = lam[pairs_line[fit.used]]
     rms_nm = float(np.sqrt(np.mean((model.wavelength(x[used_peaks]) - used_lam) ** 2))) \
         if used_peaks.size else math.nan
@@ -282,9 +303,9 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
     statistics = {
         "rms_px": fit.rms_px, "rms_nm": rms_nm, "rms_kms": rms_kms, "redchi": fit.redchi,
         "n_used": fit.n_used,
-        "n_rejected": int(np.count_nonzero(~fit.used & ~crowded & ~unconfirmed)),
+        "n_rejected": int(np.count_nonzero(~fit.used & ~unconfirmed)),
         "n_unconfirmed": int(np.count_nonzero(unconfirmed)),
-        "n_blends": int(np.count_nonzero(crowded)), "n_peaks": int(x.size),
+        "n_blends": int(np.count_nonzero(crowded | lines.blend[pairs_line])), "n_peaks": int(x.size),
         "n_identified": int(len(pairs_peak)), "distortion_degree": fit.distortion_degree,
         "log10_chance": log10_chance, "log10_trials": ident.log10_trials,
         "runner_up_matches": runner.n_matched if runner else 0,
@@ -303,7 +324,7 @@ def _fit_and_judge(profile, frame, lamps, table, lines: LineList, full_list: Lin
 
 
 def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_list: LineList,
-                pairs_peak, pairs_line, used, crowded, unconfirmed, fwhm: float) -> pd.DataFrame:
+                pairs_peak, pairs_line, used, unconfirmed, fwhm: float) -> pd.DataFrame:
     x = table["x"].to_numpy(float)
     n = x.size
     out = pd.DataFrame({
@@ -316,8 +337,7 @@ def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_
     line_wl = np.full(n, np.nan)
     line_int = np.full(n, np.nan)
     verified = np.zeros(n, bool)
-    ident[pairs_peak] = np.where(crowded, "blend", np.where(
-        used, "used", np.where(unconfirmed, "unconfirmed", "rejected")))
+    ident[pairs_peak] = np.where(used, "used", np.where(unconfirmed, "unconfirmed", "rejected"))
     element[pairs_peak] = lines.element[pairs_line]
     line_wl[pairs_peak] = lines.wavelength_nm[pairs_line]
     line_int[pairs_peak] = lines.intensity[pairs_line]
@@ -335,7 +355,7 @@ def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_
         verified[idx] = full_list.verified[ghosts.line]
     fit_wl = model.wavelength(x)
     residual_px = np.full(n, np.nan)
-    first_order = np.isin(ident, ["used", "rejected", "blend", "unconfirmed"])
+    first_order = np.isin(ident, ["used", "rejected", "unconfirmed"])
     residual_px[first_order] = x[first_order] - model.pixel(line_wl[first_order])
     residual_nm = np.where(first_order, fit_wl - line_wl, np.nan)
     out["identification"] = ident

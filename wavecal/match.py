@@ -28,7 +28,8 @@ from .model_setup import PriorBox
 from .optics import GratingModel
 
 __all__ = ["Association", "Hypothesis", "Identification", "associate", "identify_lines",
-           "chance_log10_probability", "blend_distance_px", "BLEND_INTENSITY_RATIO"]
+           "chance_log10_probability", "coincidence_probabilities", "blend_distance_px",
+           "BLEND_INTENSITY_RATIO", "LOCAL_DENSITY_FRACTION", "AMBIGUITY_DECADES"]
 
 #: Coincidences the refinement can buy beyond the searched grid (tilt and offset within their
 #: priors); the searched grating angle and focal length are paid for by the trials factor.
@@ -52,6 +53,17 @@ _EFFECTIVE_STAGE_PARAMETERS = (
 #: A listed neighbour fainter than this fraction of a line (list intensities) does not make it
 #: a blend: at 1.5 FWHM it moves the centre by well under a tenth of a pixel.
 BLEND_INTENSITY_RATIO = 0.1
+
+#: Half-width, as a fraction of the detector, of the neighbourhood over which the listed lines'
+#: density around a peak is counted for the chance-coincidence rate.
+LOCAL_DENSITY_FRACTION = 0.1
+
+#: A distinct rival whose chance probability is within this many decades of the best one's makes
+#: the identification ambiguous.
+AMBIGUITY_DECADES = 2.0
+
+#: Angle bins on either side of a voting cell over which the chance rate of votes is averaged.
+_CHANCE_WINDOW_BINS = 15
 
 #: Prior width (pixels) of a distortion coefficient during the consensus step.
 _DISTORTION_PRIOR_PX = 20.0
@@ -140,35 +152,59 @@ class Identification:
 
     @property
     def ambiguous(self) -> bool:
-        """True when a distinct solution explains nearly as many peaks as the best one."""
+        """True when a distinct solution is nearly as significant as the best one.
+
+        "Nearly": its chance probability is within a factor 100, or within a fifth of the best
+        one's orders of magnitude when that is larger.
+        """
         if self.best is None or self.runner_up is None:
             return False
-        n_best, n_alt = self.best.n_matched, self.runner_up.n_matched
-        return n_alt >= n_best - max(2, int(np.ceil(0.2 * n_best)))
+        best, alt = self.best.log10_chance, self.runner_up.log10_chance
+        return alt - best < max(AMBIGUITY_DECADES, 0.2 * abs(best))
 
 
-def chance_log10_probability(n_matched: int, n_peaks: int, line_density: float,
-                             tolerance_px: float, n_free: int) -> float:
-    """log10 probability that ``n_matched`` of ``n_peaks`` peaks fall within the tolerance of a
-    listed line by chance.
+def chance_log10_probability(n_matched: int, coincidence: np.ndarray, n_free: int) -> float:
+    """log10 probability that chance coincidences explain ``n_matched`` peaks or more.
+
+    Each peak has its own probability of landing within the association window of some listed
+    line by chance (:func:`coincidence_probabilities`): high where the list is dense, near zero
+    where it lists nothing. The number of chance coincidences then follows a Poisson-binomial
+    law, approximated by a Poisson law of the same mean (Le Cam's theorem; it slightly
+    overstates the tail, i.e. errs on the side of caution).
 
     Parameters
     ----------
-    n_matched, n_peaks : int
-        Peaks explained, peaks available.
-    line_density : float
-        Listed lines per pixel on the detector.
-    tolerance_px : float
-        Half-width of the association window.
+    n_matched : int
+        Peaks explained.
+    coincidence : ndarray
+        Chance-coincidence probability of every peak available.
     n_free : int
         Parameters adjusted to the data; each may buy one coincidence, so that many matches are
         discounted.
     """
-    p = 1.0 - np.exp(-2.0 * tolerance_px * max(line_density, 1e-12))
     k = max(n_matched - n_free, 0)
     if k == 0:
         return 0.0
-    return float(stats.binom.logsf(k - 1, n_peaks, p) / np.log(10))
+    mean = float(np.sum(np.clip(coincidence, 0.0, 1.0)))
+    return float(stats.poisson.logsf(k - 1, max(mean, 1e-12)) / np.log(10))
+
+
+def coincidence_probabilities(model: GratingModel, x: np.ndarray, lines_nm: np.ndarray,
+                              tolerance_px: float) -> np.ndarray:
+    """Probability that each peak falls within ``tolerance_px`` of a listed line by chance.
+
+    The listed lines' density is taken locally, around each peak's position under ``model``
+    (over :data:`LOCAL_DENSITY_FRACTION` of the detector on either side), so that a hypothesis
+    placing the detector where the list is dense pays for it, and a peak where the list has
+    nothing to offer (an unlisted line) costs nothing.
+    """
+    x = np.asarray(x, float)
+    pos = np.sort(model.pixel(np.asarray(lines_nm, float)))
+    pos = pos[np.isfinite(pos)]
+    half = max(LOCAL_DENSITY_FRACTION * model.n_pixels, 10.0 * tolerance_px)
+    count = np.searchsorted(pos, x + half, side="right") - np.searchsorted(pos, x - half)
+    density = count / (2.0 * half)
+    return 1.0 - np.exp(-2.0 * tolerance_px * density)
 
 
 def associate(model: GratingModel, x: np.ndarray, lines_nm: np.ndarray, tolerance_px: float,
@@ -287,7 +323,16 @@ def _tilt_grid(model: GratingModel, box: PriorBox, tolerance_px: float) -> np.nd
 
 def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray,
                 n_pixels: int, *, tolerance_px: float, max_candidates: int):
-    """Best-voted (grating angle, focal length, tilt) cells, strongest first."""
+    """Best-voted (grating angle, focal length, tilt) cells, most significant first.
+
+    Every peak votes at most once in a cell (a cell spans three angle bins, so that a pair
+    landing near a bin edge still counts). A cell's votes are compared with the votes chance
+    coincidences would give it: the same peaks' votes averaged over the neighbouring angles
+    (:data:`_CHANCE_WINDOW_BINS` on either side), which follows the line list's density where
+    that cell puts the detector. Cells are ranked by the Poisson significance of their excess,
+    so a dense stretch of the list does not win by its density alone. Distinct cells must
+    predict the detector's wavelengths differently (:func:`_distinct`).
+    """
     focal, deg_per_px = _vote_grid(model, box, n_pixels, tolerance_px)
     tilts = _tilt_grid(model, box, tolerance_px)
     phi0, dphi = box.grating_angle_deg
@@ -299,7 +344,10 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
     bin_width = deg_per_px * tolerance_px
     n_bins = max(int(np.ceil((hi - lo) / bin_width)), 1)
     phi_samples = np.linspace(lo, hi, 48)
-    window = np.ones(3)
+    wide = np.ones(2 * _CHANCE_WINDOW_BINS + 1)
+    inside = np.ones(n_bins)  # bins of the neighbourhood that exist (fewer at the range's ends)
+    neighbours = np.maximum(np.convolve(inside, wide, mode="same")
+                            - np.convolve(inside, np.ones(3), mode="same"), 1.0)
     found = []
     for tau in tilts:
         for f in focal:
@@ -309,23 +357,39 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
                 continue
             b = np.floor((phi - lo) / bin_width).astype(int)
             ok = (b >= 0) & (b < n_bins)
-            # one vote per peak per bin
-            key = np.unique(b[ok] * x.size + peak[ok])
-            hist = np.bincount(key // x.size, minlength=n_bins).astype(float)
-            smooth = np.convolve(hist, window, mode="same")
-            top = np.argpartition(smooth, -3)[-3:] if smooth.size > 3 else np.arange(smooth.size)
+            b, peak = b[ok], peak[ok]
+            raw = np.bincount(b, minlength=n_bins).astype(float)
+            # one vote per peak per three-bin cell
+            spread = np.concatenate([b - 1, b, b + 1])
+            key = np.unique(np.clip(spread, 0, n_bins - 1) * x.size + np.tile(peak, 3))
+            votes = np.bincount(key // x.size, minlength=n_bins).astype(float)
+            around = np.convolve(raw, wide, mode="same") - np.convolve(raw, np.ones(3), mode="same")
+            expected = np.maximum(3.0 * around / neighbours, 0.5)
+            score = -stats.poisson.logsf(votes - 1, expected)
+            top = np.argpartition(score, -3)[-3:] if score.size > 3 else np.arange(score.size)
             for t in top:
-                found.append((smooth[t], lo + (t + 0.5) * bin_width, float(f), float(tau)))
+                found.append((float(score[t]), lo + (t + 0.5) * bin_width, float(f), float(tau)))
     found.sort(key=lambda c: -c[0])
     chosen: list[tuple[float, float, float, float]] = []
+    signatures: list[np.ndarray] = []
     for score, phi, f, tau in found:
-        if all(abs(phi - p) > 4 * bin_width or abs(f / g - 1) > 4 * 2 * tolerance_px / n_pixels
-               or tau != t for _, p, g, t in chosen):
+        trial = model.with_parameters(grating_angle_deg=phi, focal_length_mm=f, tilt_deg=tau)
+        signature = trial.wavelength(np.linspace(0.0, n_pixels - 1.0, 5))
+        if all(_distinct(model, signature, other, tolerance_px) for other in signatures):
             chosen.append((score, phi, f, tau))
+            signatures.append(signature)
         if len(chosen) >= max_candidates:
             break
     n_trials = n_bins * focal.size * tilts.size / 3.0
     return chosen, float(np.log10(max(n_trials, 1.0)))
+
+
+def _distinct(model: GratingModel, signature: np.ndarray, other: np.ndarray,
+              tolerance_px: float) -> bool:
+    """True when two hypotheses' wavelengths at five points along the detector differ by more
+    than four association tolerances somewhere (in pixels of the nominal dispersion)."""
+    step = np.abs(model.dispersion(np.linspace(0.0, model.n_pixels - 1.0, 5)))
+    return bool(np.nanmax(np.abs(signature - other) / step) > 4.0 * tolerance_px)
 
 
 def _fit_parameters(model: GratingModel, x: np.ndarray, lines: np.ndarray, names: tuple[str, ...],
@@ -389,7 +453,7 @@ def _is_rival(best: Hypothesis, other: Hypothesis, n_pixels: int) -> bool:
 def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.ndarray, *,
                    intensity: np.ndarray | None = None,
                    vote_weight: np.ndarray | None = None, fwhm_px: float = 3.0,
-                   max_vote_peaks: int = 80, max_candidates: int = 6,
+                   max_vote_peaks: int = 80, max_candidates: int = 10,
                    final_tolerance_px: float = 1.0) -> Identification:
     """Identify observed peaks with listed lines, blindly, within the prior box.
 
@@ -428,7 +492,8 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
         return Identification(None, None, 0, 0.0, tuple(notes))
     voters = np.arange(x.size)
     if vote_weight is not None and voters.size > max_vote_peaks:
-        voters = voters[np.sort(np.argsort(np.asarray(vote_weight)[voters])[-max_vote_peaks:])]
+        weight = np.nan_to_num(np.asarray(vote_weight, float), nan=-np.inf, posinf=-np.inf)
+        voters = voters[np.sort(np.argsort(weight[voters], kind="stable")[-max_vote_peaks:])]
     vote_tol = 2.0 if not box.effective else 3.0
     chosen, log10_trials = _candidates(model, box, x[voters], lines_nm, n_pixels,
                                        tolerance_px=vote_tol, max_candidates=max_candidates)
@@ -439,14 +504,13 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
     for _, phi, f, tau in chosen:
         start = model.with_parameters(grating_angle_deg=phi, focal_length_mm=f, tilt_deg=tau)
         fitted, assoc = _refine(start, box, x, lines_nm, schedule, blend_px, intensity)
-        density = _line_density(fitted, lines_nm, n_pixels)
-        log10_p = chance_log10_probability(len(assoc), x.size, density, schedule[-1],
-                                           n_free=_SEARCH_SLACK_PARAMETERS)
+        chance = coincidence_probabilities(fitted, x, lines_nm, schedule[-1])
+        log10_p = chance_log10_probability(len(assoc), chance, n_free=_SEARCH_SLACK_PARAMETERS)
         refined.append(Hypothesis(fitted, assoc, schedule[-1], log10_p))
     if not refined:
         notes.append("no grating angle within the prior puts listed lines on the peaks")
         return Identification(None, None, 0, log10_trials, tuple(notes))
-    refined.sort(key=lambda h: (-h.n_matched, h.rms_px))
+    refined.sort(key=lambda h: (h.log10_chance, -h.n_matched, h.rms_px))
     best = refined[0]
     runner_up = next((h for h in refined[1:] if _is_rival(best, h, n_pixels)), None)
     return Identification(best, runner_up, len(refined), log10_trials, tuple(notes))
@@ -455,10 +519,3 @@ def identify_lines(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: 
 def blend_distance_px(fwhm_px: float) -> float:
     """Listed lines closer than this (1.5 FWHM, at least a pixel) are an unresolved blend."""
     return max(1.5 * fwhm_px, 1.0)
-
-
-def _line_density(model: GratingModel, lines_nm: np.ndarray, n_pixels: int) -> float:
-    """Listed lines per pixel on the detector under ``model``."""
-    pos = model.pixel(lines_nm)
-    on_chip = np.count_nonzero((pos >= 0) & (pos <= n_pixels - 1))
-    return max(on_chip, 1) / float(n_pixels)
