@@ -9,10 +9,12 @@ import dataclasses
 
 import numpy as np
 import pytest
+from scipy import stats
 
 from wavecal.fit import fit_lines
 from wavecal.linelists import load_line_list
-from wavecal.match import associate, chance_log10_probability, identify_lines
+from wavecal.match import (LOCAL_DENSITY_FRACTION, associate, chance_log10_probability,
+                           coincidence_probabilities, identify_lines)
 from wavecal.model_setup import nominal_model, prior_box
 from wavecal.profile import load_profile
 
@@ -109,7 +111,29 @@ def test_associate_is_one_to_one(wide_profile):
 
 
 def test_chance_probability_behaves():
-    # more matches at the same density are less likely by chance; a wider tolerance more likely
-    assert chance_log10_probability(10, 20, 0.01, 0.5, 2) < chance_log10_probability(5, 20, 0.01, 0.5, 2)
-    assert chance_log10_probability(8, 20, 0.01, 2.0, 2) > chance_log10_probability(8, 20, 0.01, 0.5, 2)
-    assert chance_log10_probability(2, 20, 0.01, 0.5, 2) == 0.0
+    # more matches at the same rates are less likely by chance; higher rates more likely
+    low, high = np.full(20, 0.01), np.full(20, 0.04)
+    assert chance_log10_probability(10, low, 2) < chance_log10_probability(5, low, 2)
+    assert chance_log10_probability(8, high, 2) > chance_log10_probability(8, low, 2)
+    assert chance_log10_probability(2, low, 2) == 0.0
+    # the Poisson tail of the summed rates (scipy.stats as the outside reference)
+    assert chance_log10_probability(9, low, 2) == pytest.approx(
+        stats.poisson.logsf(6, 0.2) / np.log(10), rel=1e-12)
+
+
+def test_coincidence_rate_follows_the_local_line_density(wide_profile):
+    # peaks where the list is dense are likely to hit a line by chance, peaks where it lists
+    # nothing are not: the rate is 1 - exp(-2 w rho) with rho counted around each peak
+    model = nominal_model(wide_profile, 20.0)
+    n = model.n_pixels
+    dense = model.wavelength(np.linspace(0.05 * n, 0.3 * n, 200))
+    sparse = model.wavelength(np.linspace(0.6 * n, 0.95 * n, 5))
+    lines = np.sort(np.r_[dense, sparse])
+    rates = coincidence_probabilities(model, np.array([0.15 * n, 0.8 * n, 0.45 * n]), lines, 1.0)
+    half = LOCAL_DENSITY_FRACTION * n
+    expected_dense = 1 - np.exp(-2 * 1.0 * (2 * half * 200 / (0.25 * n)) / (2 * half))
+    assert rates[0] == pytest.approx(expected_dense, rel=0.05)
+    assert rates[1] < 0.2 * rates[0]
+    assert rates[2] == 0.0
+
+

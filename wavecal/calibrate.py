@@ -278,14 +278,12 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
     shifts = {n: (getattr(model, n) - priors[n][0]) / priors[n][1] for n in PHYSICAL_PARAMETERS}
     runner = ident.runner_up
     used_x = x[used_peaks]
-    grid = np.linspace(used_x.min(), used_x.max(), 65) if used_x.size else np.zeros(1)
-    sigma_px = wavelength_sigma(model, fit.names, fit.covariance, grid) / np.abs(model.dispersion(grid))
+    evidence = _evidence(fit, model, used_x)
     verdict = judge(VerdictInputs(
-        n_used=fit.n_used, used_x=x[used_peaks], n_pixels=model.n_pixels, rms_px=fit.rms_px,
-        redchi=fit.redchi, log10_chance=log10_chance, log10_trials=ident.log10_trials,
-        ambiguous=ident.ambiguous, runner_up_matches=runner.n_matched if runner else 0,
-        best_matches=ident.best.n_matched, prior_shifts=shifts, fit_success=fit.success,
-        max_sigma_px=float(np.nanmax(sigma_px, initial=0.0)), effective_geometry=box.effective))
+        n_used=fit.n_used, log10_chance=log10_chance, log10_trials=ident.log10_trials,
+        fit_success=fit.success, scatter_px=fit.scatter_px, fwhm_px=fwhm,
+        ambiguous=ident.ambiguous, rival_log10_chance=runner.log10_chance if runner else None,
+        prior_shifts=shifts, effective_geometry=box.effective, **evidence))
 
     lines_df = _line_table(table, model, lines, full_list, pairs_peak, pairs_line, fit.used,
                            unconfirmed, fwhm)
@@ -308,9 +306,10 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
         "n_blends": int(np.count_nonzero(crowded | lines.blend[pairs_line])), "n_peaks": int(x.size),
         "n_identified": int(len(pairs_peak)), "distortion_degree": fit.distortion_degree,
         "log10_chance": log10_chance, "log10_trials": ident.log10_trials,
-        "runner_up_matches": runner.n_matched if runner else 0,
+        "runner_up_log10_chance": runner.log10_chance if runner else math.nan,
         "association_tolerance_px": tolerance, "effective_geometry": box.effective,
-        "max_sigma_px": float(np.nanmax(sigma_px, initial=0.0)),
+        "max_sigma_px": evidence["max_sigma_px"], "scatter_px": fit.scatter_px,
+        "leave_one_out_px": evidence["leave_one_out_px"],
     }
     solution = Solution(
         status=verdict.status, reasons=verdict.reasons, medium=profile.medium, model=model,
@@ -321,6 +320,23 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
         frame=str(frame.path) if frame.path else None, profile=profile.name, lamps=tuple(lamps),
         dispersion_axis=profile.detector.dispersion_axis, software_version=__version__, slit=slit)
     return solution, fit
+
+
+def _evidence(fit: FitResult, model: GratingModel, used_x: np.ndarray) -> dict[str, float]:
+    """Uncertainty and stability of the solution between the outermost lines used."""
+    if used_x.size == 0:
+        return {"max_sigma_px": math.nan, "max_sigma_at_px": math.nan,
+                "leave_one_out_px": math.nan, "leave_one_out_at_px": math.nan,
+                "largest_gap_fraction": 1.0}
+    grid = np.linspace(used_x.min(), used_x.max(), 65)
+    sigma_px = wavelength_sigma(model, fit.names, fit.covariance, grid) / np.abs(model.dispersion(grid))
+    shift = fit.leave_one_out_shift_px(grid)
+    worst = int(np.nanargmax(np.where(np.isfinite(shift), shift, -1.0)))
+    top = int(np.nanargmax(np.where(np.isfinite(sigma_px), sigma_px, -1.0)))
+    gaps = np.diff(np.sort(used_x)) / max(model.n_pixels - 1, 1)
+    return {"max_sigma_px": float(sigma_px[top]), "max_sigma_at_px": float(grid[top]),
+            "leave_one_out_px": float(shift[worst]), "leave_one_out_at_px": float(fit.x[worst]),
+            "largest_gap_fraction": float(gaps.max(initial=0.0))}
 
 
 def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_list: LineList,

@@ -14,11 +14,12 @@ from dataclasses import dataclass
 
 import lmfit
 import numpy as np
+from scipy import optimize
 
 from .model_setup import PriorBox
 from .optics import GratingModel
 
-__all__ = ["FitResult", "fit_lines", "wavelength_sigma", "PHYSICAL_PARAMETERS"]
+__all__ = ["FitResult", "fit_lines", "wavelength_sigma", "excess_scatter", "PHYSICAL_PARAMETERS"]
 
 #: Physical parameters fitted, with their GratingModel attribute names.
 PHYSICAL_PARAMETERS = ("grating_angle_deg", "focal_length_mm", "axis_pixel", "tilt_deg")
@@ -56,6 +57,15 @@ class FitResult:
     leverage : ndarray
         Diagonal of the hat matrix for every pair: how much a line's own position sets the
         model there. A kept line's leave-one-out residual is ``residual_px / (1 - leverage)``.
+    scatter_px : float
+        Scatter added in quadrature to every line's uncertainty because the residuals exceeded
+        what the stated uncertainties explain (:func:`excess_scatter`); 0 when they did not.
+        ``normalized_residual`` and ``redchi`` include it.
+    x, sigma_px : ndarray
+        Position of every input pair and its total uncertainty in the fit (pixels: centre,
+        list wavelength and ``scatter_px`` combined).
+    unscaled_covariance : ndarray
+        Parameter covariance before scaling by the reduced chi-square (priors included).
     """
 
     model: GratingModel
@@ -74,6 +84,10 @@ class FitResult:
     success: bool
     message: str
     leverage: np.ndarray
+    scatter_px: float
+    x: np.ndarray
+    sigma_px: np.ndarray
+    unscaled_covariance: np.ndarray
 
     @property
     def n_used(self) -> int:
@@ -96,6 +110,31 @@ class FitResult:
         with np.errstate(divide="ignore", invalid="ignore"):
             loo = self.residual_px / np.clip(1.0 - self.leverage, 1e-6, None)
         return np.where(self.used, loo, np.nan)
+
+    def leave_one_out_shift_px(self, grid: np.ndarray) -> np.ndarray:
+        """How far the solution moves on ``grid`` when each kept line is left out (pixels).
+
+        For every kept line, the largest |change| of the model over ``grid`` after refitting
+        without it, by the exact leave-one-out downdate of the linearised least-squares
+        problem (the Sherman-Morrison formula: dθ = C aᵢ eᵢ / (1 − hᵢ), with aᵢ the line's row
+        of the weighted Jacobian, eᵢ its normalised residual and hᵢ its leverage). NaN for
+        lines not kept, or without a covariance.
+        """
+        out = np.full(self.x.size, np.nan)
+        cov = self.unscaled_covariance
+        if not self.names or not np.all(np.isfinite(cov)) or not np.any(self.used):
+            return out
+        steps = 1e-3 * np.asarray(self.errors)
+        grid = np.asarray(grid, float)
+        jac_grid = self.model.wavelength_derivatives(self.names, grid, steps) \
+            / np.abs(self.model.dispersion(grid))
+        rows = (self.model.wavelength_derivatives(self.names, self.x, steps)
+                / (np.abs(self.model.dispersion(self.x)) * self.sigma_px)).T
+        with np.errstate(divide="ignore", invalid="ignore"):
+            factor = self.normalized_residual / np.clip(1.0 - self.leverage, 1e-6, None)
+        delta = (rows @ cov) * factor[:, None]  # (pairs, parameters)
+        shift = np.abs(delta @ jac_grid).max(axis=1)
+        return np.where(self.used, shift, np.nan)
 
     def parameter_table(self) -> list[dict]:
         """One dict per varied parameter: name, value, error."""
@@ -182,6 +221,8 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
         if free_grooves else None
     n_base = len(PHYSICAL_PARAMETERS) + int(free_grooves)
 
+    floor = n_base + 3  # never fewer lines than this: a fit on nothing is no fit
+
     def run(model, degree, keep):
         result = _single_fit(model, box, x[keep], lam[keep], sigma_px[keep], degree,
                              free_grooves, grooves_prior)
@@ -189,13 +230,13 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
 
     def clip_pass(model, degree, keep):
         for _ in range(6):
-            if np.count_nonzero(keep) < n_base + degree + 1:
+            if np.count_nonzero(keep) < max(n_base + degree + 1, floor):
                 break
             result, model = run(model, degree, keep)
             norm = (x - model.pixel(lam)) / sigma_px
             scale = max(1.4826 * np.median(np.abs(norm[keep] - np.median(norm[keep]))), 1.0)
             new_keep = allowed & (np.abs(norm) <= clip * scale)
-            if np.array_equal(new_keep, keep):
+            if np.array_equal(new_keep, keep) or np.count_nonzero(new_keep) < floor:
                 break
             keep = new_keep
         return model, keep
@@ -204,6 +245,9 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
     keep = allowed.copy()
     mid_degree = 3 if 3 in degrees and np.count_nonzero(keep) >= n_base + 3 + 4 else 0
     model, keep = clip_pass(start, mid_degree, keep)
+    scatter = excess_scatter((x - model.pixel(lam))[keep], sigma_px[keep],
+                             n_base + max(mid_degree - 2, 0))
+    sigma_px = np.hypot(sigma_px, scatter)
 
     best = None
     for degree in degrees:
@@ -220,10 +264,33 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
     model, keep = clip_pass(model.with_parameters(distortion=()) if degree == 0 else model,
                             degree, keep)
     result, model = run(model, degree, keep)
-    return _summarise(result, model, x, lam, sigma_px, keep, degree, n_base)
+    return _summarise(result, model, x, lam, sigma_px, keep, degree, n_base, scatter)
 
 
-def _summarise(result, model, x, lam, sigma_px, keep, degree, n_base) -> FitResult:
+def excess_scatter(residual_px: np.ndarray, sigma_px: np.ndarray, n_parameters: int) -> float:
+    """Scatter (pixels) to add in quadrature to every line's uncertainty so that the reduced
+    chi-square of ``residual_px`` is one; 0 when the stated uncertainties already explain it.
+
+    The maximum-likelihood "jitter" of common practice in astronomy: it stands for what the
+    centre uncertainties do not contain (unresolved companions, profile asymmetry, a list
+    wavelength that differs slightly in the lamp). Without it the brightest lines, whose
+    centres are known to a few thousandths of a pixel, dominate the fit and are the first
+    rejected when the model or the list is imperfect at that level.
+    """
+    r = np.asarray(residual_px, float)
+    s = np.asarray(sigma_px, float)
+    dof = r.size - n_parameters
+    if dof < 1 or np.sum((r / s) ** 2) <= dof:
+        return 0.0
+
+    def excess(jitter: float) -> float:
+        return float(np.sum(r**2 / (s**2 + jitter**2))) - dof
+
+    high = float(np.sqrt(np.mean(r**2))) * 2.0 + 1e-9
+    return float(optimize.brentq(excess, 0.0, high, xtol=1e-6))
+
+
+def _summarise(result, model, x, lam, sigma_px, keep, degree, n_base, scatter) -> FitResult:
     names = tuple(result.var_names)
     values = np.array([result.params[n].value for n in names])
     n_data = int(np.count_nonzero(keep))
@@ -247,7 +314,14 @@ def _summarise(result, model, x, lam, sigma_px, keep, degree, n_base) -> FitResu
                      correlation=corr, used=keep, residual_px=residual,
                      normalized_residual=residual / sigma_px, chisqr=chisqr, redchi=redchi,
                      bic=float(bic), distortion_degree=degree, success=bool(result.success),
-                     message=str(result.message), leverage=leverage)
+                     message=str(result.message), leverage=leverage, scatter_px=scatter,
+                     x=x, sigma_px=sigma_px, unscaled_covariance=_unscaled(result.covar, names))
+
+
+def _unscaled(covar, names) -> np.ndarray:
+    if covar is not None and np.all(np.isfinite(covar)):
+        return np.array(covar, dtype=float)
+    return np.full((len(names), len(names)), np.nan)
 
 
 def wavelength_sigma(model: GratingModel, names, covariance, x) -> np.ndarray:

@@ -1,0 +1,70 @@
+"""The physical fit's statistics: excess scatter and leave-one-out stability.
+
+Outside checks: the excess scatter is the maximum-likelihood "jitter" of common practice, so on
+draws from N(0, sigma^2 + s^2) it must recover s; the leave-one-out shift is checked against an
+actual refit without the line (the Sherman-Morrison downdate is exact for a linear problem and
+close for this nearly linear one).
+"""
+import numpy as np
+import pytest
+
+from wavecal.fit import excess_scatter, fit_lines
+from wavecal.linelists import load_line_list
+from wavecal.model_setup import nominal_model, prior_box
+from wavecal.profile import load_profile
+
+
+@pytest.fixture(scope="module")
+def setting():
+    profile = load_profile("tho_longslit")
+    nominal = nominal_model(profile, 28.0)
+    box = prior_box(profile, nominal)
+    truth = nominal.with_parameters(grating_angle_deg=28.3, focal_length_mm=nominal.focal_length_mm * 1.01)
+    lam = load_line_list(("Hg", "Ar")).wavelength_nm
+    x = truth.pixel(lam)
+    on = np.isfinite(x) & (x > 20) & (x < truth.n_pixels - 20)
+    return nominal, box, truth, lam[on], x[on]
+
+
+def test_excess_scatter_recovers_the_jitter():
+    rng = np.random.default_rng(3)
+    sigma = rng.uniform(0.01, 0.05, 4000)
+    residual = rng.normal(0.0, np.sqrt(sigma**2 + 0.2**2))
+    assert excess_scatter(residual, sigma, 4) == pytest.approx(0.2, rel=0.05)
+
+
+def test_no_excess_scatter_when_the_uncertainties_explain_the_residuals():
+    rng = np.random.default_rng(4)
+    sigma = np.full(200, 0.1)
+    assert excess_scatter(rng.normal(0.0, 0.08, 200), sigma, 4) == 0.0
+
+
+def test_bright_lines_are_not_rejected_for_a_small_model_mismatch(setting):
+    # tiny centre errors on half the lines, and a 0.1 px scatter the errors do not contain:
+    # the scatter is absorbed, no good line is thrown out
+    nominal, box, truth, lam, x = setting
+    rng = np.random.default_rng(5)
+    x_err = np.where(np.arange(x.size) % 2 == 0, 0.002, 0.05)
+    observed = x + rng.normal(0.0, 0.1, x.size)
+    fit = fit_lines(nominal, box, observed, x_err, lam, np.full(lam.size, 1e-5))
+    assert fit.scatter_px == pytest.approx(0.1, rel=0.4)
+    assert fit.n_used >= x.size - 1
+
+
+def test_leave_one_out_shift_matches_a_refit(setting):
+    nominal, box, truth, lam, x = setting
+    rng = np.random.default_rng(6)
+    x_err = np.full(x.size, 0.03)
+    observed = x + rng.normal(0.0, 0.03, x.size)
+    observed[-1] += 0.15  # the reddest line pulls a little
+    fit = fit_lines(nominal, box, observed, x_err, lam, np.full(lam.size, 1e-5),
+                    max_distortion_degree=0)
+    grid = np.linspace(observed.min(), observed.max(), 33)
+    shifts = fit.leave_one_out_shift_px(grid)
+    for i in (0, x.size // 2, x.size - 1):
+        mask = np.ones(x.size, bool)
+        mask[i] = False
+        refit = fit_lines(fit.model, box, observed, x_err, lam, np.full(lam.size, 1e-5),
+                          fit_mask=mask, max_distortion_degree=0, clip=1e9)
+        moved = np.abs(refit.model.pixel(fit.model.wavelength(grid)) - grid).max()
+        assert shifts[i] == pytest.approx(moved, rel=0.1, abs=2e-4)
