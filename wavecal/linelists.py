@@ -100,8 +100,8 @@ class LineList:
 
     def _subset(self, keep: np.ndarray) -> LineList:
         return LineList(self.wavelength_nm[keep], self.intensity[keep], self.element[keep],
-                        self.blend[keep], self.weak[keep], self.verified[keep], medium=self.medium,
-                        spectrum=self.spectrum[keep])
+                        self.blend[keep], self.weak[keep], self.verified[keep],
+                        medium=self.medium, spectrum=self.spectrum[keep])
 
     def in_range(self, lo_nm: float, hi_nm: float) -> LineList:
         """The lines with ``lo_nm <= wavelength_nm <= hi_nm`` (in this list's medium)."""
