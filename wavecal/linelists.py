@@ -3,9 +3,11 @@
 One ECSV file per element lives in the ``wavecal.line_lists`` package (``line_lists/`` in the
 source tree). Each holds standard-air wavelengths in nm (the NIST Atomic Spectra Database
 convention for 200–2000 nm) with a relative intensity, ``blend``, ``weak`` and ``verified``
-flags, the source of each value and a note; the table metadata documents the intensity scale,
-the flag rules and the references. Lines with ``verified = False`` are recalled NIST values not yet
-checked against the database (good to about 0.002 nm).
+flags, the spectrum (``"Ar I"``, ``"Ar II"`` ...), the source of each value and a note; the table
+metadata documents the intensity scale, the flag rules and the references. A lamp's file holds every
+spectrum the lamp shows (an argon lamp: Ar I and Ar II), with intensities on one scale per file.
+Files written before the ``spectrum`` column existed are still read: their lines take the
+spectrum named in the table metadata.
 
 Vacuum wavelengths are computed on request with :mod:`wavecal.airvac`.
 """
@@ -15,6 +17,7 @@ import functools
 from collections.abc import Iterable
 from dataclasses import dataclass
 from importlib import resources
+from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -34,6 +37,7 @@ MEDIA = ("air", "vacuum")
 
 _COLUMNS = ("wavelength", "intensity", "blend", "weak", "verified")
 _FLAGS = ("blend", "weak", "verified")
+_SPECTRUM_COLUMN = "spectrum"
 
 
 @dataclass(frozen=True, eq=False)
@@ -57,9 +61,12 @@ class LineList:
     weak : ndarray of bool
         Faint in a typical lamp.
     verified : ndarray of bool
-        False for wavelengths from memory, not yet checked against NIST.
+        False for wavelengths not checked against a published source.
     medium : {"air", "vacuum"}
         Medium of :attr:`wavelength_nm` (air means standard air).
+    spectrum : ndarray of str
+        Emitting spectrum of each line (``"Ar I"`` neutral, ``"Ar II"`` singly ionised ...); an
+        empty string where the source file does not say. Defaults to empty strings.
     """
 
     wavelength_nm: np.ndarray
@@ -69,14 +76,17 @@ class LineList:
     weak: np.ndarray
     verified: np.ndarray
     medium: str = "air"
+    spectrum: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         if self.medium not in MEDIA:
             msg = f"medium must be one of {MEDIA}, got {self.medium!r}"
             raise ValueError(msg)
-        dtypes = {"wavelength_nm": float, "intensity": float, "element": str,
-                  "blend": bool, "weak": bool, "verified": bool}
         n = len(np.atleast_1d(self.wavelength_nm))
+        if self.spectrum is None:
+            object.__setattr__(self, "spectrum", np.full(n, ""))
+        dtypes = {"wavelength_nm": float, "intensity": float, "element": str,
+                  "blend": bool, "weak": bool, "verified": bool, "spectrum": str}
         for name, dtype in dtypes.items():
             values = np.array(getattr(self, name), dtype=dtype, ndmin=1)
             if values.shape != (n,):
@@ -90,7 +100,8 @@ class LineList:
 
     def _subset(self, keep: np.ndarray) -> LineList:
         return LineList(self.wavelength_nm[keep], self.intensity[keep], self.element[keep],
-                        self.blend[keep], self.weak[keep], self.verified[keep], medium=self.medium)
+                        self.blend[keep], self.weak[keep], self.verified[keep],
+                        medium=self.medium, spectrum=self.spectrum[keep])
 
     def in_range(self, lo_nm: float, hi_nm: float) -> LineList:
         """The lines with ``lo_nm <= wavelength_nm <= hi_nm`` (in this list's medium)."""
@@ -108,7 +119,7 @@ class LineList:
         convert = airvac.air_to_vacuum if medium == "vacuum" else airvac.vacuum_to_air
         wavelength = convert(self.wavelength_nm, method=method)
         return LineList(wavelength, self.intensity, self.element, self.blend, self.weak,
-                        self.verified, medium=medium)
+                        self.verified, medium=medium, spectrum=self.spectrum)
 
     def to_vacuum(self, *, method: str = airvac.DEFAULT_METHOD) -> LineList:
         """The same lines with vacuum wavelengths (``self`` if already in vacuum).
@@ -132,7 +143,7 @@ class LineList:
 
     def to_dataframe(self) -> pd.DataFrame:
         """One row per line: ``wavelength_nm``, ``intensity``, ``element``, ``blend``, ``weak``,
-        ``verified``; the medium is in ``DataFrame.attrs["medium"]``."""
+        ``verified``, ``spectrum``; the medium is in ``DataFrame.attrs["medium"]``."""
         frame = pd.DataFrame({
             "wavelength_nm": self.wavelength_nm,
             "intensity": self.intensity,
@@ -140,6 +151,7 @@ class LineList:
             "blend": self.blend,
             "weak": self.weak,
             "verified": self.verified,
+            "spectrum": self.spectrum,
         })
         frame.attrs["medium"] = self.medium
         return frame
@@ -159,7 +171,12 @@ def available_elements() -> tuple[str, ...]:
 @functools.lru_cache(maxsize=None)
 def _read_element(element: str) -> LineList:
     with resources.as_file(_folder() / f"{element}.ecsv") as path:
-        table = Table.read(path, format="ascii.ecsv")
+        return _read_table(path, element)
+
+
+def _read_table(path: Path, element: str) -> LineList:
+    """The lines of one ECSV line-list file, with the old (no ``spectrum`` column) or new layout."""
+    table = Table.read(path, format="ascii.ecsv")
     missing = [name for name in _COLUMNS if name not in table.colnames]
     if missing:
         msg = f"{path}: line list lacks column(s) {missing}"
@@ -169,11 +186,15 @@ def _read_element(element: str) -> LineList:
                f"{table.meta.get('medium')!r} and unit {str(table['wavelength'].unit)!r}")
         raise ValueError(msg)
     n = len(table)
+    if _SPECTRUM_COLUMN in table.colnames:
+        spectrum = np.asarray(table[_SPECTRUM_COLUMN], dtype=str)
+    else:
+        spectrum = np.full(n, str(table.meta.get("spectrum", "")))
     return LineList(np.asarray(table["wavelength"], dtype=float),
                     np.asarray(table["intensity"], dtype=float),
                     np.full(n, element),
                     *(np.asarray(table[flag], dtype=bool) for flag in _FLAGS),
-                    medium="air")
+                    medium="air", spectrum=spectrum)
 
 
 def _normalised(elements: str | Iterable[str]) -> list[str]:
@@ -237,6 +258,7 @@ def load_line_list(elements: str | Iterable[str], *, medium: str = "air",
         np.concatenate([part.element for part in parts])[order],
         *(np.concatenate([getattr(part, flag) for part in parts])[order] for flag in _FLAGS),
         medium="air",
+        spectrum=np.concatenate([part.spectrum for part in parts])[order],
     )
     if not include_weak:
         merged = merged._subset(~merged.weak)
