@@ -68,3 +68,11 @@ def test_leave_one_out_shift_matches_a_refit(setting):
                           fit_mask=mask, max_distortion_degree=0, clip=1e9)
         moved = np.abs(refit.model.pixel(fit.model.wavelength(grid)) - grid).max()
         assert shifts[i] == pytest.approx(moved, rel=0.1, abs=2e-4)
+
+
+def test_excess_scatter_with_one_degree_of_freedom():
+    # five residuals, four parameters: the jitter that makes chi-square equal to one exists
+    residual = np.array([0.3, -0.2, 0.25, -0.35, 0.1])
+    sigma = np.full(5, 0.01)
+    jitter = excess_scatter(residual, sigma, 4)
+    assert np.sum(residual**2 / (sigma**2 + jitter**2)) == pytest.approx(1.0, rel=1e-4)

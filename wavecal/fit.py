@@ -286,7 +286,8 @@ def excess_scatter(residual_px: np.ndarray, sigma_px: np.ndarray, n_parameters: 
     def excess(jitter: float) -> float:
         return float(np.sum(r**2 / (s**2 + jitter**2))) - dof
 
-    high = float(np.sqrt(np.mean(r**2))) * 2.0 + 1e-9
+    # at jitter j the sum is at most sum(r²) / j², which reaches dof at j = sqrt(sum(r²) / dof)
+    high = float(np.sqrt(np.sum(r**2) / dof)) * 1.01 + 1e-12
     return float(optimize.brentq(excess, 0.0, high, xtol=1e-6))
 
 

@@ -360,9 +360,10 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
             b, peak = b[ok], peak[ok]
             raw = np.bincount(b, minlength=n_bins).astype(float)
             # one vote per peak per three-bin cell
-            spread = np.concatenate([b - 1, b, b + 1])
-            key = np.unique(np.clip(spread, 0, n_bins - 1) * x.size + np.tile(peak, 3))
-            votes = np.bincount(key // x.size, minlength=n_bins).astype(float)
+            cast = np.zeros((n_bins + 2, x.size), bool)
+            cast[b + 1, peak] = True
+            cell = cast[:-2] | cast[1:-1] | cast[2:]
+            votes = np.count_nonzero(cell, axis=1).astype(float)
             around = np.convolve(raw, wide, mode="same") - np.convolve(raw, np.ones(3), mode="same")
             expected = np.maximum(3.0 * around / neighbours, 0.5)
             score = -stats.poisson.logsf(votes - 1, expected)
