@@ -221,7 +221,7 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
         if free_grooves else None
     n_base = len(PHYSICAL_PARAMETERS) + int(free_grooves)
 
-    floor = n_base + 3  # never fewer lines than this: a fit on nothing is no fit
+    floor = n_base + 1  # clipping never leaves fewer lines than this: a fit on nothing is no fit
 
     def run(model, degree, keep):
         result = _single_fit(model, box, x[keep], lam[keep], sigma_px[keep], degree,
@@ -230,7 +230,7 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
 
     def clip_pass(model, degree, keep):
         for _ in range(6):
-            if np.count_nonzero(keep) < max(n_base + degree + 1, floor):
+            if np.count_nonzero(keep) < n_base + degree + 1:
                 break
             result, model = run(model, degree, keep)
             norm = (x - model.pixel(lam)) / sigma_px
