@@ -88,3 +88,21 @@ def test_five_listed_lines_are_still_solved_and_judged_on_their_significance(see
         f"10^{solution.statistics['log10_chance']:.1f} after "
         f"10^{solution.statistics['log10_trials']:.1f} trials)",)
     assert _max_error_px(solution, sim.truth) < 0.25
+
+
+def test_hydrogen_lines_name_peaks_but_are_not_evidence():
+    """A lamp module with water in its tube shows Balmer lines (H-alpha at 656.279 nm in air,
+    NIST ASD). Calibrated as Hg+Ne, the H-alpha peak is named as an extra, and neither fitted
+    nor counted in the identification's significance."""
+    profile = load_profile("tho_approximate")
+    sim = simulate_arc(profile, seed=1, lamps=("Hg", "Ne", "H"))
+    solution = calibrate_frame(frame_from_array(sim.data, profile, header=sim.header), profile,
+                               lamps=("Hg", "Ne"))
+    extra = solution.lines[solution.lines["identification"] == "extra"]
+    h_alpha = sim.truth.pixel(656.279)
+    assert (extra["element"] == "H").all()
+    assert np.min(np.abs(extra["x"] - h_alpha)) < 0.5
+    used = solution.lines[solution.lines["identification"] == "used"]
+    assert solution.statistics["n_identified"] == len(solution.lines[
+        solution.lines["identification"].isin(["used", "rejected", "unconfirmed"])])
+    assert not used["element"].str.contains("H").any()

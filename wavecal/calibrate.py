@@ -31,7 +31,7 @@ from .slit import SlitMeasurement, SlitShift, measure_slit, profile_slit_rows
 from .solution import SPEED_OF_LIGHT_KMS, Solution
 from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 
-__all__ = ["calibrate_frame", "Calibration", "LINE_UNCERTAINTY_VERIFIED_NM",
+__all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS", "LINE_UNCERTAINTY_VERIFIED_NM",
            "LINE_UNCERTAINTY_UNVERIFIED_NM"]
 
 #: Leave-one-out residual (pixels) below which a used line counts as confirmed by the others
@@ -42,6 +42,11 @@ _MAX_UNCONFIRMED = 4
 
 #: Smallest window (pixels) assumed for chance coincidences in the significance test.
 _MIN_CHANCE_WINDOW_PX = 0.1
+
+#: Elements many small lamps show besides their own (hydrogen from water in the tube): their
+#: lines may name peaks that nothing else explains, but never count as evidence and are never
+#: fitted. Name one in ``lamps`` to use it as a lamp element.
+POSSIBLE_EXTRAS = ("H",)
 
 #: Wavelength uncertainty given to line-list values checked against NIST (nm).
 LINE_UNCERTAINTY_VERIFIED_NM = 0.0005
@@ -137,6 +142,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         slit = measure_slit(frame, spectrum, peaks, min_snr=min_snr)
         spectrum, peaks = slit.spectrum, slit.peaks
     line_list = load_line_list(lamps, medium=profile.medium)
+    extras = tuple(e for e in POSSIBLE_EXTRAS if e not in {lamp.capitalize() for lamp in lamps})
+    extra_list = load_line_list(extras, medium=profile.medium) if extras else None
     lo, hi = _reachable_range(nominal, box)
 
     table = peaks.table
@@ -151,7 +158,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         solution = _failed(profile, frame, lamps, table, ident.notes or ("no identification",))
     else:
         solution, fit = _fit_and_judge(profile, frame, lamps, table, features, line_list,
-                                       ident, box, fwhm, free_grooves,
+                                       extra_list, ident, box, fwhm, free_grooves,
                                        slit.shift if slit is not None else None)
     if details:
         return Calibration(solution, spectrum, peaks, ident, fit, nominal, box, slit)
@@ -248,7 +255,7 @@ def _confirm(fit: FitResult, box, x, x_err, lam, lam_err, free_grooves):
 
 
 def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_list: LineList,
-                   ident: Identification, box: PriorBox, fwhm: float, free_grooves: bool,
+                   extra_list: LineList | None, ident: Identification, box: PriorBox, fwhm: float, free_grooves: bool,
                    slit: SlitShift | None):
     lines = features.lines
     x = table["x"].to_numpy(float)
@@ -285,7 +292,7 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
         ambiguous=ident.ambiguous, rival_log10_chance=runner.log10_chance if runner else None,
         prior_shifts=shifts, effective_geometry=box.effective, **evidence))
 
-    lines_df = _line_table(table, model, lines, full_list, pairs_peak, pairs_line, fit.used,
+    lines_df = _line_table(table, model, lines, full_list, extra_list, pairs_peak, pairs_line, fit.used,
                            unconfirmed, fwhm)
     used_lam = lam[pairs_line[fit.used]]
     rms_nm = float(np.sqrt(np.mean((model.wavelength(x[used_peaks]) - used_lam) ** 2))) \
@@ -340,6 +347,7 @@ def _evidence(fit: FitResult, model: GratingModel, used_x: np.ndarray) -> dict[s
 
 
 def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_list: LineList,
+                extra_list: LineList | None,
                 pairs_peak, pairs_line, used, unconfirmed, fwhm: float) -> pd.DataFrame:
     x = table["x"].to_numpy(float)
     n = x.size
@@ -369,6 +377,16 @@ def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_
         line_wl[idx] = full_list.wavelength_nm[ghosts.line]
         line_int[idx] = full_list.intensity[ghosts.line]
         verified[idx] = full_list.verified[ghosts.line]
+    # unidentified peaks at a line of a possible extra element (never evidence, never fitted)
+    rest = np.flatnonzero(ident == "unidentified")
+    if rest.size and extra_list is not None and len(extra_list):
+        found = associate(model, x[rest], extra_list.wavelength_nm, max(0.5, 0.3 * fwhm))
+        idx = rest[found.peak]
+        ident[idx] = "extra"
+        element[idx] = extra_list.element[found.line]
+        line_wl[idx] = extra_list.wavelength_nm[found.line]
+        line_int[idx] = extra_list.intensity[found.line]
+        verified[idx] = extra_list.verified[found.line]
     fit_wl = model.wavelength(x)
     residual_px = np.full(n, np.nan)
     first_order = np.isin(ident, ["used", "rejected", "unconfirmed"])
