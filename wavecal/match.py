@@ -29,7 +29,8 @@ from .optics import GratingModel
 
 __all__ = ["Association", "Hypothesis", "Identification", "associate", "identify_lines",
            "chance_log10_probability", "coincidence_probabilities", "blend_distance_px",
-           "BLEND_INTENSITY_RATIO", "LOCAL_DENSITY_FRACTION", "AMBIGUITY_DECADES"]
+           "BLEND_INTENSITY_RATIO", "LOCAL_DENSITY_FRACTION", "AMBIGUITY_DECADES",
+           "AMBIGUITY_FRACTION"]
 
 #: Coincidences the refinement can buy beyond the searched grid (tilt and offset within their
 #: priors); the searched grating angle and focal length are paid for by the trials factor.
@@ -61,6 +62,8 @@ LOCAL_DENSITY_FRACTION = 0.1
 #: A distinct rival whose chance probability is within this many decades of the best one's makes
 #: the identification ambiguous.
 AMBIGUITY_DECADES = 2.0
+#: ... or within this fraction of the best one's decades, when that is more.
+AMBIGUITY_FRACTION = 0.2
 
 #: Angle bins on either side of a voting cell over which the chance rate of votes is averaged.
 _CHANCE_WINDOW_BINS = 15
@@ -154,13 +157,13 @@ class Identification:
     def ambiguous(self) -> bool:
         """True when a distinct solution is nearly as significant as the best one.
 
-        "Nearly": its chance probability is within a factor 100, or within a fifth of the best
-        one's orders of magnitude when that is larger.
+        "Nearly": its chance probability is within :data:`AMBIGUITY_DECADES` decades of the best
+        one's, or within :data:`AMBIGUITY_FRACTION` of the best one's decades when that is more.
         """
         if self.best is None or self.runner_up is None:
             return False
         best, alt = self.best.log10_chance, self.runner_up.log10_chance
-        return alt - best < max(AMBIGUITY_DECADES, 0.2 * abs(best))
+        return alt - best < max(AMBIGUITY_DECADES, AMBIGUITY_FRACTION * abs(best))
 
 
 def chance_log10_probability(n_matched: int, coincidence: np.ndarray, n_free: int) -> float:
