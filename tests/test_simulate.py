@@ -22,7 +22,8 @@ from scipy.special import ndtr
 
 from wavecal.linelists import load_line_list
 from wavecal.profile import load_profile
-from wavecal.simulate import SimulatedArc, _blur_for_fwhm, simulate_arc, slit_line_profile
+from wavecal.simulate import SimulatedArc, simulate_arc, slit_line_profile
+from wavecal.simulate.line_profile import blur_for_fwhm
 
 QUIET = {"cosmic_rays": 0, "hot_pixels": 0, "scattered_light": 0.0}
 
@@ -88,9 +89,9 @@ def test_profile_matches_numerical_integration(slit, sigma):
 
 def test_blur_for_fwhm_reaches_half_maximum_at_half_width():
     # Gaussian limit: FWHM = 2 sqrt(2 ln 2) sigma (normal distribution; common practice).
-    assert _blur_for_fwhm(3.0, 0.0) == pytest.approx(3.0 / (2 * np.sqrt(2 * np.log(2))), rel=1e-8)
+    assert blur_for_fwhm(3.0, 0.0) == pytest.approx(3.0 / (2 * np.sqrt(2 * np.log(2))), rel=1e-8)
     fwhm, slit = 3.0, 1.8
-    sigma = _blur_for_fwhm(fwhm, slit)
+    sigma = blur_for_fwhm(fwhm, slit)
     profile = lambda u: ndtr((u + slit / 2) / sigma) - ndtr((u - slit / 2) / sigma)  # noqa: E731
     assert profile(fwhm / 2) == pytest.approx(0.5 * profile(0.0), rel=1e-8)
 
