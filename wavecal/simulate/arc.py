@@ -11,6 +11,7 @@ from astropy.io import fits
 from .._atomic import atomic_path
 from ..optics import GratingModel
 from ..profile import InstrumentProfile
+from .camera import CameraGeometry
 from .line_shape import LineImageShape
 
 __all__ = ["SimulatedArc"]
@@ -28,7 +29,10 @@ class SimulatedArc:
         Header with the profile's keywords: nominal grating angle, lamps, image type "arc",
         exposure time, DATE-OBS and binning.
     truth : GratingModel
-        The true pixel-to-wavelength model (binned pixels along the dispersion axis of ``data``).
+        The true pixel-to-wavelength model (binned pixels along the dispersion axis of ``data``)
+        on the reference row; with a :class:`~.camera.CameraGeometry` it holds on the slit
+        centre of the undistorted focal plane instead, and :meth:`true_wavelength` gives the
+        wavelength on the detector.
     lines : pandas.DataFrame
         One row per line put on the detector, sorted by ``x_true``: ``wavelength_nm``,
         ``element``, ``order`` (diffraction order), ``x_true`` (0-based raw pixel on the
@@ -46,8 +50,9 @@ class SimulatedArc:
         Binning ``(along axis 0, along axis 1)``.
     slit_rows : tuple of int
         ``[start, stop)`` along the spatial axis of the rows lit to at least half the maximum.
-    line_shape : LineImageShape
-        How the lines run along the slit; its reference row is the centre of the slit.
+    line_shape : LineImageShape or CameraGeometry
+        How the lines run along the slit (given, or derived from the camera's optics); its
+        reference row is the centre of the slit.
     """
 
     data: np.ndarray
@@ -58,7 +63,7 @@ class SimulatedArc:
     nominal: GratingModel
     binning: tuple[int, int]
     slit_rows: tuple[int, int]
-    line_shape: LineImageShape = field(default_factory=LineImageShape)
+    line_shape: LineImageShape | CameraGeometry = field(default_factory=LineImageShape)
 
     def true_wavelength(self, x, y=None):
         """True wavelength (nm, the profile's medium) at 0-based raw pixel ``x``.
@@ -69,11 +74,10 @@ class SimulatedArc:
             Pixel along the dispersion axis.
         y : array_like, optional
             Pixel along the spatial axis (broadcast with ``x``); default the reference row of
-            :attr:`line_shape` (the slit centre), where ``truth`` holds as it is.
+            :attr:`line_shape` (the slit centre).
         """
-        if y is None:
-            return self.truth.wavelength(x)
-        return self.truth.wavelength(self.line_shape.reference_position(x, y))
+        row = self.line_shape.reference_row if y is None else y
+        return self.line_shape.wavelength(self.truth, x, row)
 
     def true_shift(self, x, y):
         """True shift (pixels) on row ``y`` of the line at ``x`` on the reference row."""
@@ -135,8 +139,5 @@ class SimulatedArc:
             "n_unlisted": int((~lines["listed"]).sum()),
             "n_ghosts": int(lines["ghost"].sum()),
             "n_saturated": int(lines["saturated"].sum()),
-            "line_tilt_deg": list(self.line_shape.tilt_deg),
-            "line_curvature_px": list(self.line_shape.curvature_px),
-            "slit_centre_row": float(self.line_shape.reference_row),
-        }
+        } | self.line_shape.describe()
 

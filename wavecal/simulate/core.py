@@ -10,15 +10,17 @@ hot pixels and saturation.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import replace
 
 import numpy as np
 
 from ..linelists import load_line_list
 from ..profile import InstrumentProfile, parse_lamps
 from .arc import SimulatedArc
+from .camera import CameraGeometry
 from .detector import (Layout, draw_bias, draw_hot_pixels, flag_saturated, frame_binning,
                        frame_header, read_out, slit_illumination, continuum_shape)
-from .lamp import place_lines
+from .lamp import LampExtras, place_lines
 from .line_profile import LineWidth
 from .line_shape import LineImageShape
 from .models import nominal_setting, true_model
@@ -59,6 +61,16 @@ def simulate_arc(
     noise_seed: int | None = None,
     line_tilt_deg: float | tuple[float, float] = 0.0,
     line_curvature_px: float | tuple[float, float] = 0.0,
+    fwhm_slope: float = 0.0,
+    anamorphic: bool = False,
+    detector_rotation_deg: float = 0.0,
+    radial_distortion_px: float = 0.0,
+    slit_smile: bool = False,
+    unlisted_strength: float = 0.5,
+    balmer: float = 0.0,
+    ion_lines: float = 0.0,
+    unfiltered_orders: Sequence[int] = (),
+    saturation_boost: tuple[float, float] = (1.3, 3.0),
 ) -> SimulatedArc:
     """Simulate a raw arc-lamp frame of ``profile`` with a known true wavelength model.
 
@@ -133,6 +145,31 @@ def simulate_arc(
         Sagitta of the line images: extra shift (pixels) at the slit ends relative to the
         straight tilted line, or its values at the first and last illuminated pixel. Zero tilt
         and curvature (the default) give straight lines along the spatial axis.
+    fwhm_slope : float
+        Relative FWHM change, linear in the pixel position, from the detector centre to its
+        last pixel (the opposite at the first), besides ``focus_variation``.
+    anamorphic : bool
+        Let the slit-image width follow the grating's anamorphic magnification along the
+        detector (see :class:`~.line_profile.LineWidth`).
+    detector_rotation_deg, radial_distortion_px, slit_smile
+        The camera and detector geometry of :mod:`.camera`: rotation of the detector
+        (degrees, |angle| < 45), third-order radial distortion given as the displacement
+        (pixels, positive outwards) at the end of the dispersion axis farthest from the camera
+        axis, and the conical-diffraction curvature of the slit image. Any of them replaces
+        the given ``line_tilt_deg`` / ``line_curvature_px`` (which must then be zero) and
+        makes :attr:`SimulatedArc.line_shape` a :class:`~.camera.CameraGeometry`.
+    unlisted_strength : float
+        Median strength of the random unlisted lines relative to a listed line.
+    balmer : float
+        Hα strength relative to the strongest listed line (0: no hydrogen); see
+        :mod:`.hydrogen`.
+    ion_lines : float
+        Strength of unlisted ion lines (Ar II for an Ar lamp) relative to the element's
+        strongest listed line (0: none).
+    unfiltered_orders : sequence of int
+        Orders among (2, 3) that no filter blocks: every line also appears in them.
+    saturation_boost : (float, float)
+        Range of the factor by which the ``saturate`` brightest lines exceed saturation.
 
     Returns
     -------
@@ -151,6 +188,12 @@ def simulate_arc(
     if max(abs(tilt[0]), abs(tilt[1])) >= 45.0:
         msg = f"line_tilt_deg must be within (-45, 45) degrees, got {line_tilt_deg!r}"
         raise ValueError(msg)
+    camera = bool(detector_rotation_deg or radial_distortion_px or slit_smile)
+    _check_physics(camera, tilt, curvature, detector_rotation_deg, balmer, ion_lines,
+                   unlisted_strength, saturation_boost)
+    extras = LampExtras(unlisted_strength=float(unlisted_strength), balmer=float(balmer),
+                        ion_lines=float(ion_lines),
+                        unfiltered_orders=tuple(int(k) for k in unfiltered_orders))
     rng = np.random.default_rng(seed)
     lamp_list = parse_lamps(lamps) if isinstance(lamps, str) else tuple(lamps or profile.lamps)
     if not lamp_list:
@@ -161,28 +204,35 @@ def simulate_arc(
     catalogue = load_line_list(lamp_list, medium=profile.medium, include_weak=True)
 
     header_angle, nominal = nominal_setting(profile, bins, catalogue, grating_angle_deg,
-                                     central_wavelength_nm)
+                                            central_wavelength_nm)
     truth = true_model(profile, nominal, rng, angle_error_deg, focal_error_fraction,
-                        axis_error_px, tilt_error_deg, distortion_px, bins)
+                       axis_error_px, tilt_error_deg, distortion_px, bins)
     lo, hi = np.sort(truth.wavelength(np.array(layout.disp) - 0.5))
     if not (np.isfinite(lo) and np.isfinite(hi)):
         msg = f"{profile.name}: the requested setting diffracts no light onto part of the detector"
         raise ValueError(msg)
 
     width = LineWidth.draw(rng, fwhm_px, slit_fraction, focus_variation)
+    if fwhm_slope or anamorphic:
+        width = replace(width, slope=float(fwhm_slope), anamorphic=truth if anamorphic else None)
     lines = place_lines(catalogue, lamp_list, truth, layout, (lo, hi), rng, profile,
-                         missing_fraction, unlisted_fraction, intensity_scatter, ghosts)
+                        missing_fraction, unlisted_fraction, intensity_scatter, ghosts, extras)
     spatial, slit_rows, (slit_centre, slit_half) = slit_illumination(layout, rng)
-    shape = LineImageShape(tilt_deg=tilt, curvature_px=curvature, reference_row=slit_centre,
-                           half_length=slit_half,
-                           x_range=(float(layout.disp[0]), float(layout.disp[1] - 1)))
+    if camera:
+        shape = _camera(truth, layout, profile, bins, slit_centre, detector_rotation_deg,
+                        radial_distortion_px, slit_smile)
+        lines = lines.assign(x_true=shape.reference_position_of_focal(lines["x_true"].to_numpy()))
+    else:
+        shape = LineImageShape(tilt_deg=tilt, curvature_px=curvature, reference_row=slit_centre,
+                               half_length=slit_half,
+                               x_range=(float(layout.disp[0]), float(layout.disp[1] - 1)))
     cont_shape = continuum_shape(layout, rng)
     bias = draw_bias(profile, rng, bias_adu)
     hot = draw_hot_pixels(layout, rng, hot_pixels)
-    boosts = rng.uniform(1.3, 3.0, size=saturate)
+    boosts = rng.uniform(*saturation_boost, size=saturate)
 
     lines, cont_level = set_fluxes(lines, layout, width, truth, spatial, slit_rows, cont_shape,
-                                    profile, peak_snr, scattered_light, boosts, bias[0])
+                                   profile, peak_snr, scattered_light, boosts, bias[0])
     image = expected_image(lines, layout, width, truth, spatial, cont_shape, cont_level, shape)
     lines = flag_saturated(lines, image, bias[0], profile)
     noise_rng = rng if noise_seed is None else np.random.default_rng(noise_seed)
@@ -196,6 +246,35 @@ def simulate_arc(
 
 
 # -- option checks and geometry --------------------------------------------------------------
+def _check_physics(camera, tilt, curvature, rotation, balmer, ion_lines, unlisted_strength,
+                   saturation_boost):
+    boost = tuple(float(b) for b in saturation_boost)
+    rules = [
+        (not (camera and (any(tilt) or any(curvature))),
+         "line_tilt_deg / line_curvature_px cannot be combined with the camera geometry "
+         "(detector_rotation_deg, radial_distortion_px, slit_smile)"),
+        (abs(rotation) < 45.0, "detector_rotation_deg must be within (-45, 45) degrees"),
+        (min(balmer, ion_lines, unlisted_strength) >= 0,
+         "balmer, ion_lines and unlisted_strength must be non-negative"),
+        (len(boost) == 2 and 1.0 <= boost[0] <= boost[1],
+         "saturation_boost must be a pair (low, high) with 1 <= low <= high"),
+    ]
+    for ok, msg in rules:
+        if not ok:
+            raise ValueError(msg)
+
+
+def _camera(truth, layout, profile, bins, slit_centre, rotation, radial_px, smile):
+    """The :class:`CameraGeometry` of the options (rotation about the detector centre)."""
+    d0, d1 = layout.disp
+    reach = max(abs(d0 - truth.axis_pixel), abs(d1 - 1 - truth.axis_pixel))
+    spatial_bin = bins[1 - profile.detector.dispersion_axis]
+    return CameraGeometry(model=truth, reference_row=float(slit_centre),
+                          centre_x=0.5 * (d0 + d1 - 1), rotation_deg=float(rotation),
+                          radial_k=float(radial_px) / reach ** 3, smile=bool(smile),
+                          spatial_pixel_mm=profile.detector.pixel_size_um * 1e-3 * spatial_bin)
+
+
 def _check_options(peak_snr, missing_fraction, unlisted_fraction, intensity_scatter,
                    slit_fraction, dtype, cosmic_rays, hot_pixels, saturate, scattered_light):
     rules = [

@@ -18,7 +18,9 @@ import numpy as np
 from scipy.optimize import brentq
 from scipy.special import ndtr
 
-__all__ = ["LineWidth", "blur_for_fwhm", "slit_line_profile"]
+from ..optics import GratingModel
+
+__all__ = ["LineWidth", "blur_for_fwhm", "fwhm_of", "slit_line_profile"]
 
 _SQRT_2PI = np.sqrt(2.0 * np.pi)
 
@@ -76,14 +78,39 @@ def blur_for_fwhm(fwhm: float, slit: float) -> float:
     return float(brentq(excess, 1e-6 * fwhm, fwhm, xtol=1e-10 * fwhm))
 
 
+def fwhm_of(slit_px, blur_sigma_px):
+    """FWHM (pixels, before pixel integration) of a top-hat of full width ``slit_px`` blurred by
+    a Gaussian of standard deviation ``blur_sigma_px`` (inverse of :func:`blur_for_fwhm`)."""
+    a, s = np.broadcast_arrays(0.5 * np.asarray(slit_px, dtype=float),
+                               np.asarray(blur_sigma_px, dtype=float))
+    half_peak = ndtr(a / s) - 0.5  # half of the peak 2 Phi(a/s) - 1
+    lo, hi = np.zeros_like(a), a + 6.0 * s
+    for _ in range(60):  # bisection: the profile falls monotonically from the centre
+        mid = 0.5 * (lo + hi)
+        above = ndtr((mid + a) / s) - ndtr((mid - a) / s) > half_peak
+        lo, hi = np.where(above, mid, lo), np.where(above, hi, mid)
+    gaussian = 2.0 * np.sqrt(2.0 * np.log(2.0)) * s  # the limit of a vanishing slit
+    return np.where(a < 1e-6 * s, gaussian, lo + hi)
+
 
 @dataclass(frozen=True)
 class LineWidth:
-    """Line FWHM at the centre, slit-image fraction of it, and FWHM change towards the ends."""
+    """How wide the lines are along the detector.
+
+    The FWHM at the detector centre is ``fwhm``; the camera's focus changes the whole profile
+    by the factor ``1 + slope s + focus s²`` (``s`` the pixel position scaled to [-1, 1]). The
+    slit image is ``slit_fraction`` of the central FWHM; with ``anamorphic`` (the true grating
+    model) its width also follows the grating's anamorphic magnification: the image of a slit
+    of fixed width is ``cos α / cos β`` times wider along the dispersion (Palmer & Loewen,
+    *Diffraction Grating Handbook*, ch. 2), so relative to the detector centre it scales as
+    ``cos β_c / cos β(x)``.
+    """
 
     fwhm: float
     slit_fraction: float
     focus: float
+    slope: float = 0.0
+    anamorphic: GratingModel | None = None
 
     @classmethod
     def draw(cls, rng, fwhm, slit_fraction, focus):
@@ -98,10 +125,18 @@ class LineWidth:
     def at(self, x, n_pixels):
         """(FWHM, slit width, blur sigma) of lines centred at ``x``."""
         half = 0.5 * (n_pixels - 1)
-        fwhm = self.fwhm * (1 + self.focus * ((np.asarray(x, dtype=float) - half) / half) ** 2)
-        fwhm = np.maximum(fwhm, 0.3)
+        x = np.asarray(x, dtype=float)
+        s = (x - half) / half
+        change = 1 + self.focus * s ** 2
+        if self.slope:
+            change = change + self.slope * s
+        fwhm = np.maximum(self.fwhm * change, 0.3)
         slit = self.slit_fraction * self.fwhm
         sigma = blur_for_fwhm(self.fwhm, slit)
         scale = fwhm / self.fwhm
-        return fwhm, slit * scale, sigma * scale
-
+        if self.anamorphic is None:
+            return fwhm, slit * scale, sigma * scale
+        _, beta_c = self.anamorphic.angles
+        widening = np.cos(np.radians(beta_c)) / np.cos(np.radians(self.anamorphic.beta(x)))
+        slit_x = slit * scale * widening
+        return fwhm_of(slit_x, sigma * scale), slit_x, sigma * scale

@@ -77,3 +77,18 @@ class LineImageShape:
             ref = x - self.shift(ref, y)
         return ref
 
+    def wavelength(self, model, x, y):
+        """Wavelength (nm) at pixel ``(x, y)`` when ``model`` holds on the reference row."""
+        return model.wavelength(self.reference_position(x, y))
+
+    def slit_position(self, x, y):
+        """Row along the slit imaged at pixel ``(x, y)``: the row itself (the slit image is not
+        rotated)."""
+        return np.broadcast_to(np.asarray(y, dtype=float), np.broadcast_shapes(np.shape(x),
+                                                                                 np.shape(y)))
+
+    def describe(self) -> dict:
+        """JSON-safe description for :meth:`.SimulatedArc.summary`."""
+        return {"line_tilt_deg": list(self.tilt_deg),
+                "line_curvature_px": list(self.curvature_px),
+                "slit_centre_row": float(self.reference_row)}

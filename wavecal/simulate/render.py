@@ -5,6 +5,7 @@ import numpy as np
 
 from .detector import Layout, continuum_rows
 from .line_profile import LineWidth, slit_line_profile
+from .camera import CameraGeometry
 from .line_shape import LineImageShape
 
 __all__ = ["expected_image", "set_fluxes"]
@@ -26,8 +27,9 @@ def _spectrum_1d(x, flux, layout: Layout, width: LineWidth, n_pixels: int) -> np
 
 
 def _shaped_lines(x, flux, layout: Layout, width: LineWidth, n_pixels: int, spatial: np.ndarray,
-                  shape: LineImageShape) -> np.ndarray:
-    """Electrons of the lines per (spatial, dispersion) pixel, each row with its own shift."""
+                  shape: LineImageShape | CameraGeometry) -> np.ndarray:
+    """Electrons of the lines per (spatial, dispersion) pixel, each row with its own shift and
+    the slit illumination of the slit row imaged there."""
     image = np.zeros((layout.n_spatial, layout.n_disp))
     lit = np.flatnonzero(spatial > 1e-12 * spatial.max())
     if len(x) == 0 or lit.size == 0:
@@ -36,7 +38,10 @@ def _shaped_lines(x, flux, layout: Layout, width: LineWidth, n_pixels: int, spat
     half = int(np.ceil(np.max(0.5 * slit + 6 * sigma))) + 2
     offsets = np.arange(-half, half + 1)
     d0, d1 = layout.disp
-    rows = np.arange(lit[0], lit[-1] + 1)
+    # a rotated slit image reaches beyond the rows lit at the rotation centre
+    rows = (np.arange(*layout.spatial) if isinstance(shape, CameraGeometry)
+            else np.arange(lit[0], lit[-1] + 1))
+    all_rows = np.arange(layout.n_spatial, dtype=float)
     per_chunk = max(1, 2_000_000 // (len(x) * offsets.size))
     for start in range(0, rows.size, per_chunk):
         chunk = rows[start:start + per_chunk]
@@ -44,7 +49,8 @@ def _shaped_lines(x, flux, layout: Layout, width: LineWidth, n_pixels: int, spat
         pix = np.floor(centre)[:, :, None] + offsets
         frac = slit_line_profile(pix, centre[:, :, None], slit_px=slit[None, :, None],
                                  blur_sigma_px=sigma[None, :, None])
-        value = frac * (flux[None, :, None] * spatial[chunk][:, None, None])
+        lit_here = np.interp(shape.slit_position(centre, chunk[:, None]), all_rows, spatial)
+        value = frac * (flux[None, :, None] * lit_here[:, :, None])
         inside = (pix >= d0) & (pix < d1)
         index = (np.arange(chunk.size)[:, None, None] * layout.n_disp + pix)[inside].astype(np.int64)
         image[chunk] = np.bincount(index, weights=value[inside],
@@ -96,7 +102,7 @@ def set_fluxes(lines, layout, width, truth, spatial, slit_rows, cont_shape, prof
 
 
 def expected_image(lines, layout, width, truth, spatial, cont_shape, cont_level,
-                    shape: LineImageShape) -> np.ndarray:
+                   shape: LineImageShape | CameraGeometry) -> np.ndarray:
     """Expected electrons, shape (spatial, dispersion)."""
     x, flux = lines["x_true"].to_numpy(), lines["flux_e"].to_numpy()
     if shape.straight:
