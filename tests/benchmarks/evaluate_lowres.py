@@ -62,23 +62,25 @@ MIN_USABLE = 6
 
 @dataclass
 class Scored(Outcome):
-    """An outcome judged with its own tolerance (px) over the identified lines' range."""
+    """An outcome judged with its own tolerance (px) over the identified lines' range: along
+    the solution's reference row, or with ``whole_slit`` over every half-maximum row."""
 
     tolerance_px: float = RIGHT_PX
     family: str = ""
     blue_unlisted: float = math.nan
+    whole_slit: bool = False
 
     @property
     def judged_err(self) -> float:
-        return self.max_err
+        return self.slit_max_err if self.whole_slit else self.max_err
 
     @property
     def success(self) -> bool:
-        return self.verdict in ("ok", "suspect") and self.max_err < self.tolerance_px
+        return self.verdict in ("ok", "suspect") and self.judged_err < self.tolerance_px
 
     @property
     def wrong_ok(self) -> bool:
-        return self.verdict == "ok" and not self.max_err < self.tolerance_px
+        return self.verdict == "ok" and not self.judged_err < self.tolerance_px
 
 
 @dataclass
@@ -209,9 +211,12 @@ def simulate_lowres(index: int, seed: int) -> tuple[Drawn, SimulatedArc, Instrum
 
 # -- scoring ---------------------------------------------------------------------------------
 def score_frame(arc: SimulatedArc, profile: InstrumentProfile, folder: str, common: dict,
-                tolerance_px: float) -> Scored:
+                tolerance_px: float, *, whole_slit: bool = False) -> Scored:
     """Write ``arc``, calibrate it blind with ``profile`` and score the solution against the
-    truth over the identified lines' range (``common``: the descriptive fields)."""
+    truth over the identified lines' range (``common``: the descriptive fields; ``whole_slit``:
+    judge a 2-D frame over all its lit rows)."""
+    common = common | {"tolerance_px": tolerance_px,
+                       "whole_slit": whole_slit and arc.slit_rows[1] - arc.slit_rows[0] > 1}
     path = arc.write(Path(folder) / f"frame{common['index']:05d}.fits", overwrite=True)
     start = time.perf_counter()
     try:
@@ -220,16 +225,15 @@ def score_frame(arc: SimulatedArc, profile: InstrumentProfile, folder: str, comm
         last = traceback.extract_tb(exc.__traceback__)[-1]
         note = f"{type(exc).__name__}: {exc} ({Path(last.filename).name}:{last.lineno})"
         return Scored(**common, verdict="error", max_err=math.nan, rms_err=math.nan,
-                      coverage=0.0, seconds=time.perf_counter() - start, note=note[:200],
-                      tolerance_px=tolerance_px)
+                      coverage=0.0, seconds=time.perf_counter() - start, note=note[:200])
     finally:
         path.unlink(missing_ok=True)
     seconds = time.perf_counter() - start
     note = "; ".join(solution.reasons)[:200]
     if solution.model is None:
         return _with_rows(Scored(**common, verdict=solution.status, max_err=math.nan,
-                                 rms_err=math.nan, coverage=0.0, seconds=seconds, note=note,
-                                 tolerance_px=tolerance_px), arc, profile)
+                                 rms_err=math.nan, coverage=0.0, seconds=seconds, note=note),
+                          arc, profile)
     lo, hi = solution.covered_range_px
     x = np.linspace(lo, hi, 500)
     error = ((solution.wavelength(x) - arc.true_wavelength(x, solution.reference_row))
@@ -238,7 +242,7 @@ def score_frame(arc: SimulatedArc, profile: InstrumentProfile, folder: str, comm
     outcome = Scored(**common, verdict=solution.status, max_err=float(np.max(np.abs(error))),
                      rms_err=float(np.sqrt(np.mean(error ** 2))),
                      coverage=float((hi - lo) / arc.truth.n_pixels), seconds=seconds, note=note,
-                     slit_rms_err=slit_rms, slit_max_err=slit_max, tolerance_px=tolerance_px)
+                     slit_rms_err=slit_rms, slit_max_err=slit_max)
     return outcome if outcome.success else _with_rows(outcome, arc, profile)
 
 
