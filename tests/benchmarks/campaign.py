@@ -37,14 +37,13 @@ from __future__ import annotations
 import argparse
 import math
 import sys
-import tempfile
 import time
 
 import numpy as np
 
 from evaluate import SENSITIVITY_NM, _detector, _header, _range_for, print_table, usable_lines
-from evaluate_lowres import (RIGHT_PX, Scored, print_families, print_misses, run_all,
-                             score_frame, simulate_lowres)
+from evaluate_lowres import (RIGHT_PX, Scored, print_families, run_frames, score_frame,
+                             simulate_lowres)
 from wavecal.profile import profile_from_dict
 from wavecal.simulate import simulate_arc
 
@@ -177,17 +176,14 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     n = 3 * len(FAMILIES) if args.quick else args.n
     start = time.perf_counter()
-    with tempfile.TemporaryDirectory(prefix="wavecal-campaign-") as folder:
-        jobs = [(i, seed, folder) for seed in args.seeds for i in range(n)]
-        outcomes = run_all(jobs, run_campaign_frame, args.workers)
+    outcomes = run_frames(run_campaign_frame, args.seeds, n, args.workers)
     if args.table:
         print_table(outcomes)
     print(f"campaign: {len(outcomes)} frames over seeds {args.seeds}, wall time "
           f"{time.perf_counter() - start:.0f} s; right = verdict not failed and max error < "
           f"{RIGHT_PX_REGULAR} px ({RIGHT_PX} px for the low-resolution family) over the "
           f"identified lines' range, over the whole lit slit for {', '.join(WHOLE_SLIT)}")
-    print_families(outcomes, lambda o: o.family)
-    print_misses(outcomes, lambda o: o.family)
+    print_families(outcomes)
     return 0
 
 
