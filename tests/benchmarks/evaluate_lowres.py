@@ -191,11 +191,13 @@ def blue_unlisted_share(arc: SimulatedArc) -> float:
     return float(flux[blue & unlisted].sum() / total) if total > 0 else math.nan
 
 
-def simulate_lowres(index: int, seed: int) -> tuple[Drawn, SimulatedArc, InstrumentProfile, int]:
-    """Draw and simulate frame ``index`` until it shows enough usable lines."""
+def simulate_lowres(index: int, seed: int, *, stream: int = LOWRES_STREAM
+                    ) -> tuple[Drawn, SimulatedArc, InstrumentProfile, int]:
+    """Draw and simulate frame ``index`` until it shows enough usable lines (``stream``: the
+    extra element of the random-stream key, so that another script draws frames of its own)."""
     family = SUBFAMILIES[index % len(SUBFAMILIES)]
     for attempt in range(40):
-        rng = np.random.default_rng([seed, index, attempt, LOWRES_STREAM])
+        rng = np.random.default_rng([seed, index, attempt, stream])
         drawn = draw_lowres(rng, family)
         profile = profile_from_dict(drawn.sim_profile, source=f"<low-res {index}>")
         sim_seed = int(rng.integers(2**31))
