@@ -21,8 +21,10 @@ from scipy import integrate
 from scipy.special import ndtr
 
 from wavecal.linelists import load_line_list
-from wavecal.profile import load_profile
-from wavecal.simulate import SimulatedArc, _blur_for_fwhm, simulate_arc, slit_line_profile
+from wavecal.profile import load_profile, profile_from_dict
+from wavecal.simulate import SimulatedArc, simulate_arc, slit_line_profile
+from wavecal.simulate.hydrogen import balmer_wavelengths
+from wavecal.simulate.line_profile import LineWidth, blur_for_fwhm, fwhm_of
 
 QUIET = {"cosmic_rays": 0, "hot_pixels": 0, "scattered_light": 0.0}
 
@@ -88,9 +90,9 @@ def test_profile_matches_numerical_integration(slit, sigma):
 
 def test_blur_for_fwhm_reaches_half_maximum_at_half_width():
     # Gaussian limit: FWHM = 2 sqrt(2 ln 2) sigma (normal distribution; common practice).
-    assert _blur_for_fwhm(3.0, 0.0) == pytest.approx(3.0 / (2 * np.sqrt(2 * np.log(2))), rel=1e-8)
+    assert blur_for_fwhm(3.0, 0.0) == pytest.approx(3.0 / (2 * np.sqrt(2 * np.log(2))), rel=1e-8)
     fwhm, slit = 3.0, 1.8
-    sigma = _blur_for_fwhm(fwhm, slit)
+    sigma = blur_for_fwhm(fwhm, slit)
     profile = lambda u: ndtr((u + slit / 2) / sigma) - ndtr((u - slit / 2) / sigma)  # noqa: E731
     assert profile(fwhm / 2) == pytest.approx(0.5 * profile(0.0), rel=1e-8)
 
@@ -344,5 +346,206 @@ def test_image_goes_to_the_profiles_extension():
     ({"central_wavelength_nm": 5000.0}, "no grating angle puts 5000.0 nm"),
 ])
 def test_bad_options_are_refused(option, message):
+    with pytest.raises(ValueError, match=message):
+        simulate_arc(load_profile("tho_longslit"), seed=0, **option)
+
+
+# -- the physics of real spectrographs (issues 12 and 13) ------------------------------------
+def _tall_profile(n_rows: int = 600, n_disp: int = 1024, grooves: float = 600.0,
+                  focal_mm: float = 120.0):
+    """A small invented reflection spectrograph with a tall slit (Tamsin Hill style)."""
+    return profile_from_dict({
+        "instrument": {"name": "THO test tall slit", "medium": "air", "lamps": ["Ne"]},
+        "grating": {"mount": "reflection", "grooves_per_mm": grooves, "deviation_deg": 30.0},
+        "camera": {"focal_length_mm": focal_mm},
+        "detector": {"pixel_size_um": 13.5, "shape": [n_rows, n_disp], "dispersion_axis": 1,
+                     "wavelength_increases": 1, "saturation_adu": 65000.0,
+                     "gain_e_per_adu": 1.0, "read_noise_e": 3.0, "bias_adu": 300.0},
+        "header": {"grating_angle": {"keyword": "GRTANGLE"}, "lamps": {"keyword": "ARCLAMPS"}},
+    })
+
+
+def _row_centroids(arc: SimulatedArc, x: float, rows: np.ndarray, half: int = 6) -> np.ndarray:
+    """Centroid of the line near ``x`` on each of ``rows`` (frames with no scattered light)."""
+    data = arc.data.astype(float) - arc.profile.detector.bias_adu
+    out = []
+    for y in rows:
+        c = int(round(x + arc.true_shift(x, y)))
+        window = data[y, c - half:c + half + 1]
+        out.append(np.sum(window * np.arange(c - half, c + half + 1)) / np.sum(window))
+    return np.array(out)
+
+
+CLEAN = {"cosmic_rays": 0, "hot_pixels": 0, "scattered_light": 0.0, "peak_snr": 3e4,
+             "dtype": "float32", "missing_fraction": 0.0, "unlisted_fraction": 0.0,
+             "ghosts": False}
+
+
+def _isolated_bright_line(arc: SimulatedArc) -> float:
+    lines = arc.lines
+    x = lines["x_true"].to_numpy()
+    gap = np.array([np.min(np.abs(np.delete(x, i) - v), initial=np.inf) for i, v in enumerate(x)])
+    good = (gap > 25) & (x > 60) & (x < arc.truth.n_pixels - 60)
+    assert good.any(), "no isolated line to measure"
+    return float(x[good][np.argmax(lines["flux_e"].to_numpy()[good])])
+
+
+@pytest.mark.parametrize("rotation", [1.0, -0.7])
+def test_detector_rotation_tilts_the_measured_line_by_the_rotation(rotation):
+    # A rotated detector turns the slit image (straight along the focal plane's spatial axis)
+    # by the rotation angle (plane rotation; common practice).
+    arc = simulate_arc(_tall_profile(), seed=3, detector_rotation_deg=rotation, **CLEAN)
+    x = _isolated_bright_line(arc)
+    rows = np.arange(arc.slit_rows[0] + 20, arc.slit_rows[1] - 20, 10)
+    centres = _row_centroids(arc, x, rows)
+    slope = np.polyfit(rows, centres, 1)[0]
+    assert np.degrees(np.arctan(slope)) == pytest.approx(rotation, abs=0.02)
+    # Along the measured line image the true wavelength stays that of the line.
+    line = arc.true_wavelength(x)
+    dispersion = abs(float(arc.truth.dispersion(x)))
+    assert np.max(np.abs(arc.true_wavelength(centres, rows) - line)) / dispersion < 0.05
+
+
+def test_smile_bends_lines_as_the_conical_grating_equation_says():
+    # Off the dispersion plane by gamma the grating equation is m lambda = d cos(gamma)
+    # (sin alpha + sin beta) (Palmer & Loewen, Diffraction Grating Handbook, ch. 2, conical
+    # diffraction; from memory): on a row h pixels from the slit centre the line lambda sits
+    # where lambda / cos(gamma) sits on the centre row, gamma = atan(h * pixel / f).
+    prof = _tall_profile(n_rows=1000, focal_mm=80.0)
+    arc = simulate_arc(prof, seed=5, slit_smile=True, **CLEAN)
+    x = _isolated_bright_line(arc)
+    wl = float(arc.true_wavelength(x))
+    centre = arc.line_shape.reference_row
+    rows = np.array([arc.slit_rows[0] + 5, int(round(centre)), arc.slit_rows[1] - 6])
+    gamma = np.arctan((rows - centre) * 13.5e-3 / arc.truth.focal_length_mm)
+    expected = arc.truth.pixel(wl / np.cos(gamma))
+    measured = _row_centroids(arc, x, rows)
+    assert expected[0] - expected[1] > 1.0  # the effect is large enough to be seen
+    np.testing.assert_allclose(measured, expected, atol=0.03)
+
+
+def test_radial_distortion_moves_lines_by_the_cube_of_their_distance_from_the_axis():
+    # Third-order radial distortion: r -> r (1 + k r^3 / r) (common practice); on the axis row
+    # a line moves along the dispersion by k (u - x0)^3, the given displacement at the far end.
+    arc = simulate_arc(_tall_profile(), seed=4, radial_distortion_px=2.5, **CLEAN)
+    lines = arc.lines[arc.lines["order"] == 1]
+    u = arc.truth.pixel(lines["wavelength_nm"].to_numpy())
+    axis = arc.truth.axis_pixel
+    reach = max(axis, arc.truth.n_pixels - 1 - axis)
+    np.testing.assert_allclose(lines["x_true"].to_numpy() - u, 2.5 * ((u - axis) / reach) ** 3,
+                               atol=1e-6)
+    # The camera mapping and its inverse agree.
+    geometry = arc.line_shape
+    uu, ww = np.meshgrid(np.linspace(0, 1023, 7), np.linspace(0, 599, 5))
+    back = geometry.focal_position(*geometry.detector_position(uu, ww))
+    np.testing.assert_allclose(back, (uu, ww), atol=1e-8)
+
+
+def test_balmer_wavelengths_match_nist():
+    # NIST ASD H I, standard air: H-alpha 656.279 nm (blend; reference-values.md, ASD556);
+    # H-beta 486.135, H-gamma 434.047, H-delta 410.174 nm (NIST ASD; from memory). The Rydberg
+    # formula leaves out fine structure (about 0.01 nm); without the reduced mass the lines
+    # would be 0.2-0.4 nm off.
+    nist = np.array([656.279, 486.135, 434.047, 410.174])
+    np.testing.assert_allclose(balmer_wavelengths([3, 4, 5, 6]), nist, atol=0.012)
+    # H-alpha in vacuum: 656.4603 nm for the NIST blend (reference-values.md, section 2).
+    assert balmer_wavelengths(3, medium="vacuum") == pytest.approx(656.4603, abs=0.012)
+
+
+def test_balmer_and_ion_lines_are_unlisted_lines_where_the_truth_says():
+    prof = _tall_profile(n_rows=100, grooves=300.0)
+    arc = simulate_arc(prof, seed=6, lamps="NeAr", central_wavelength_nm=520.0, balmer=1.0,
+                       ion_lines=1.0, **CLEAN)
+    lines = arc.lines
+    hydrogen = lines[lines["element"] == "H"]
+    ions = lines[lines["element"] == "Ar II"]
+    assert len(hydrogen) >= 2 and len(ions) >= 5
+    assert not (hydrogen["listed"].any() or ions["listed"].any())
+    for group in (hydrogen, ions):
+        np.testing.assert_allclose(arc.true_wavelength(group["x_true"].to_numpy()),
+                                   group["wavelength_nm"].to_numpy(), atol=1e-6)
+    # The lines follow the case-B decrement: H-beta / H-alpha = 1 / 2.86 (Osterbrock &
+    # Ferland 2006, table 4.2; from memory), and H-alpha has the given fraction of the
+    # strongest listed line (no blaze in this profile).
+    flux = dict(zip(np.round(hydrogen["wavelength_nm"], 1), hydrogen["flux_e"], strict=True))
+    assert flux[486.1] / flux[656.3] == pytest.approx(1 / 2.86, rel=1e-9)
+    strongest = lines.loc[lines["listed"] & (lines["order"] == 1), "flux_e"].max()
+    assert flux[656.3] <= strongest * (1 + 1e-9)
+
+
+def test_unfiltered_orders_land_where_the_grating_equation_puts_them():
+    # m lambda = d (sin alpha + sin beta) (Palmer & Loewen, ch. 2): the order-m image of lambda
+    # falls where the first order has m lambda.
+    prof = _tall_profile(n_rows=100, grooves=300.0)
+    arc = simulate_arc(prof, seed=7, lamps="HgNeAr", central_wavelength_nm=800.0,
+                       unfiltered_orders=(2, 3), **CLEAN)
+    lines = arc.lines
+    for m in (2, 3):
+        images = lines[lines["order"] == m]
+        assert len(images) >= 2 and images["ghost"].all()
+        x = images["x_true"].to_numpy()
+        alpha, _ = arc.truth.angles
+        sin_sum = np.sin(np.radians(alpha)) + np.sin(np.radians(arc.truth.beta(x)))
+        d_nm = 1e6 / arc.truth.grooves_per_mm
+        np.testing.assert_allclose(d_nm * sin_sum / m, images["wavelength_nm"].to_numpy(),
+                                   atol=1e-6)
+    second, third = (lines.loc[lines["order"] == m, "flux_e"].sum() for m in (2, 3))
+    assert third < second < lines.loc[lines["order"] == 1, "flux_e"].sum()
+
+
+def test_saturation_clips_at_the_level_and_widens_with_the_excess():
+    prof = _tall_profile(n_rows=100)
+    level = prof.detector.saturation_adu
+    runs = []
+    for boost in ((1.3, 1.4), (5.8, 6.0)):
+        arc = simulate_arc(prof, seed=8, saturate=2, saturation_boost=boost,
+                           **(CLEAN | {"peak_snr": 300.0}))
+        assert arc.data.max() == level  # float32 frames are clipped at the level too
+        top = arc.lines.nlargest(2, "flux_e")
+        assert top["saturated"].all()
+        row = arc.data[int(round(arc.line_shape.reference_row))]
+        runs.append([int(np.sum(row[int(x) - 15:int(x) + 16] >= level)) for x in top["x_true"]])
+    # A line 6x over the level is clipped over a wider core than one 1.3x over it (the same
+    # lines, the same profile: only the excess differs).
+    assert all(r > 0 for r in runs[0])
+    assert all(wide > narrow for wide, narrow in zip(runs[1], runs[0], strict=True))
+
+
+def test_line_width_follows_focus_slope_and_anamorphic_magnification():
+    # The image of a slit is cos(alpha)/cos(beta) times wider along the dispersion (anamorphic
+    # magnification; Palmer & Loewen, Diffraction Grating Handbook, ch. 2).
+    prof = _tall_profile(n_rows=100, grooves=1800.0, focal_mm=60.0)
+    arc = simulate_arc(prof, seed=9, central_wavelength_nm=600.0, fwhm_px=4.0, focus_variation=0.0,
+                       fwhm_slope=0.2, slit_fraction=0.6, **CLEAN)
+    lines = arc.lines
+    half = 0.5 * (arc.truth.n_pixels - 1)
+    s = (lines["x_true"].to_numpy() - half) / half
+    np.testing.assert_allclose(lines["fwhm_px"].to_numpy(), 4.0 * (1 + 0.2 * s), rtol=1e-9)
+    width = LineWidth(fwhm=4.0, slit_fraction=0.6, focus=0.0, anamorphic=arc.truth)
+    x = np.array([0.0, half, arc.truth.n_pixels - 1.0])
+    fwhm, slit, sigma = width.at(x, arc.truth.n_pixels)
+    _, beta_c = arc.truth.angles
+    expected = np.cos(np.radians(beta_c)) / np.cos(np.radians(arc.truth.beta(x)))
+    np.testing.assert_allclose(slit / slit[1], expected / expected[1], rtol=1e-12)
+    assert abs(expected[0] - expected[2]) > 0.03  # the effect is large enough to be seen
+    np.testing.assert_allclose(fwhm, fwhm_of(slit, sigma))
+    np.testing.assert_allclose(fwhm_of(2.4, blur_for_fwhm(4.0, 2.4)), 4.0, rtol=1e-9)
+
+
+def test_single_row_frames_put_lines_where_the_truth_says():
+    prof = _tall_profile(n_rows=1)
+    arc = simulate_arc(prof, seed=10, peak_snr=3000.0, **QUIET)
+    assert arc.data.shape == (1, 1024) and arc.slit_rows == (0, 1)
+    errors = _centroid_errors(arc)
+    assert len(errors) >= 3 and np.max(np.abs(errors)) < 0.1
+
+
+@pytest.mark.parametrize(("option", "message"), [
+    ({"detector_rotation_deg": 1.0, "line_tilt_deg": 1.0}, "cannot be combined"),
+    ({"saturation_boost": (3.0, 2.0)}, "saturation_boost must be"),
+    ({"balmer": -1.0}, "must be non-negative"),
+    ({"unfiltered_orders": (4,)}, "unfiltered orders must be among"),
+])
+def test_bad_physics_options_are_refused(option, message):
     with pytest.raises(ValueError, match=message):
         simulate_arc(load_profile("tho_longslit"), seed=0, **option)
