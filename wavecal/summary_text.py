@@ -35,8 +35,8 @@ def format_summary(solution: Solution) -> str:
     out.append(f"  lamps     : {'+'.join(solution.lamps)}   profile: {solution.profile}")
     out.append(f"  peaks     : {stats.get('n_peaks', len(solution.lines))} found, "
                f"{int(ident.get('used', 0))} used, {int(ident.get('rejected', 0))} rejected, "
-               f"{int(ident.get('blend', 0))} blends, {int(ident.get('ghost', 0))} 2nd-order ghosts, "
-               f"{int(ident.get('unidentified', 0))} unidentified")
+               f"{int(stats.get('n_blends', 0))} blends, {int(ident.get('ghost', 0))} 2nd-order ghosts, "
+               f"{int(ident.get('extra', 0))} extra, {int(ident.get('unidentified', 0))} unidentified")
     if solution.model is None:
         return "\n".join(out)
     n = solution.model.n_pixels

@@ -23,14 +23,15 @@ __all__ = ["spectrum_figure", "residuals_figure", "quality_figure", "slit_figure
            "drift_figure", "arcs_figure", "PALETTE"]
 
 #: Okabe & Ito colours by role.
-PALETTE = {"used": "#0072B2", "rejected": "#D55E00", "blend": "#E69F00", "band": "#56B4E9",
+PALETTE = {"used": "#0072B2", "rejected": "#D55E00", "extra": "#E69F00", "band": "#56B4E9",
+           "unconfirmed": "#009E73",
            "extrapolated": "#999999", "ghost": "#CC79A7", "unidentified": "#999999",
            "spectrum": "#000000", "ok": "#0072B2", "suspect": "#E69F00", "failed": "#D55E00"}
 #: Colours of successive series (configurations) in the night figures.
 SERIES = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442")
 #: How each kind of peak is marked: (marker, colour, filled).
 PEAK_STYLES = {"used": ("v", PALETTE["used"], True), "rejected": ("D", PALETTE["rejected"], False),
-               "blend": ("^", PALETTE["blend"], False), "ghost": ("s", PALETTE["ghost"], False),
+               "extra": ("^", PALETTE["extra"], False), "ghost": ("s", PALETTE["ghost"], False),
                "unidentified": ("x", PALETTE["unidentified"], False)}
 _WIDTH = 1100
 #: Below this spread of the line shift over the slit (px) the slit map says it is flat.
@@ -78,8 +79,8 @@ def _spread_labels(x: np.ndarray, gap: float, lo: float, hi: float) -> np.ndarra
 def spectrum_figure(solution: Solution, spectrum: tuple[np.ndarray, np.ndarray] | None = None
                     ) -> Canvas:
     """The arc spectrum (square-root scale, so faint and saturated lines both show) with every
-    peak marked: used lines labelled with wavelength and element, rejected lines, blends,
-    ghosts and unidentified peaks each drawn distinctly; a wavelength scale along the top.
+    peak marked: used lines labelled with wavelength and element, rejected lines, extra
+    lines, ghosts and unidentified peaks each drawn distinctly; a wavelength scale along the top.
 
     Without ``spectrum`` (``(x, flux)``) the peaks are drawn as sticks of their flux and the
     figure says so.
@@ -121,7 +122,7 @@ def spectrum_figure(solution: Solution, spectrum: tuple[np.ndarray, np.ndarray] 
             items.append(({"marker": marker, "colour": colour, "filled": filled},
                           f"{kind} ({int(sel.sum())})"))
     lam = _column(lines, "line_wavelength")
-    labelled = np.flatnonzero(np.isin(ident, ("used", "rejected", "blend")) & np.isfinite(lam))
+    labelled = np.flatnonzero(np.isin(ident, ("used", "rejected", "extra")) & np.isfinite(lam))
     if labelled.size:
         labelled = labelled[np.argsort(x_peak[labelled], kind="stable")]
         want = panel.x(x_peak[labelled])
@@ -167,7 +168,7 @@ def _off_scale(panel: Panel, x: np.ndarray, res: np.ndarray, half: float, colour
 
 def residuals_figure(solution: Solution) -> Canvas:
     """Residuals (pixels) against pixel and against wavelength: used lines filled circles
-    with error bars, rejected lines open diamonds, blends triangles; the band is ±RMS; the
+    with error bars, rejected lines open diamonds, unconfirmed lines triangles; the band is ±RMS; the
     shaded regions are extrapolated (no line used there). Lines beyond the axes (the axes
     follow the used lines) are arrowheads at the edge, with their residual written."""
     canvas = Canvas(_WIDTH, 570)
@@ -188,7 +189,7 @@ def residuals_figure(solution: Solution) -> Canvas:
     n = solution.model.n_pixels
     lo, hi = solution.covered_range_px
     wl_edges = np.asarray(solution.wavelength(np.array([0.0, lo, hi, n - 1.0])), dtype=float)
-    styles = (("used", "o", True), ("rejected", "D", False), ("blend", "^", False))
+    styles = (("used", "o", True), ("rejected", "D", False), ("unconfirmed", "^", False))
     items = []
     for kind, marker, filled in styles:
         if (ident == kind).any():
