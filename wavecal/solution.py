@@ -161,18 +161,25 @@ class Solution:
 
     def pixel(self, wavelength_nm, y=None, *, medium: str | None = None):
         """0-based pixel along the dispersion axis where ``wavelength_nm`` lands on row ``y``
-        (default the reference row); NaN if nowhere.
+        (default the reference row).
 
-        ``medium`` says which medium ``wavelength_nm`` is in (default :attr:`medium`).
+        NaN where the wavelength lands off the detector, i.e. outside the pixels ``-0.5`` to
+        ``n_pixels - 0.5`` (the outer edges of the first and last pixel, ``n_pixels`` of the
+        model), or cannot be diffracted at all. ``medium`` says which medium ``wavelength_nm``
+        is in (default :attr:`medium`).
         """
+        model = self._require_model()
         lam = self._to_medium(np.asarray(wavelength_nm, dtype=float), medium or self.medium,
                               self.medium)
-        x = self._require_model().pixel(lam)
-        if y is None:
-            return x
-        if self.slit is None:
-            return x + np.zeros(np.broadcast(np.asarray(x), np.asarray(y)).shape)
-        return x + self.slit.shift(x, y)
+        x = model.pixel(lam)
+        if y is not None:
+            x = x + (np.zeros(np.broadcast(np.asarray(x), np.asarray(y)).shape)
+                     if self.slit is None else self.slit.shift(x, y))
+        with np.errstate(invalid="ignore"):
+            off = ~((x >= -0.5) & (x <= model.n_pixels - 0.5))
+        if np.ndim(x) == 0:
+            return float("nan") if off else x
+        return np.where(off, np.nan, x)
 
     def _reference_x(self, x, y):
         """Position on the reference row of the point ``x`` on row ``y``."""
