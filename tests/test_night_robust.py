@@ -39,6 +39,14 @@ def small_night(tmp_path_factory):
     return make_night(raw, n_arcs=3, n_science=2, n_bias=3, n_flats=0, bad_files=False)
 
 
+def _script(folder: Path) -> str:
+    """The plain script saved as a file (``python -c`` would not show the problem: worker
+    processes re-run a main *file*)."""
+    path = folder / "night_script.py"
+    path.write_text(PLAIN_SCRIPT)
+    return str(path)
+
+
 def _descendants(pid: int) -> set[int]:
     """Process ids of every descendant of ``pid`` (Linux /proc)."""
     found, todo = set(), [pid]
@@ -67,7 +75,7 @@ def _alive(pid: int) -> bool:
 @pytest.mark.skipif(not Path("/proc/self/task").is_dir(), reason="needs Linux /proc")
 def test_workers_end_when_the_main_process_is_killed(small_night, tmp_path):
     out = tmp_path / "out"
-    proc = subprocess.Popen([sys.executable, "-c", PLAIN_SCRIPT, str(small_night.root), str(out)],
+    proc = subprocess.Popen([sys.executable, _script(tmp_path), str(small_night.root), str(out)],
                             env=ENV, stdout=subprocess.DEVNULL, start_new_session=True)
     try:
         deadline = time.monotonic() + 120
@@ -95,7 +103,7 @@ def test_workers_end_when_the_main_process_is_killed(small_night, tmp_path):
 
 def test_plain_script_without_main_guard_runs_the_night(small_night, tmp_path):
     out = tmp_path / "out"
-    run = subprocess.run([sys.executable, "-c", PLAIN_SCRIPT, str(small_night.root), str(out)],
+    run = subprocess.run([sys.executable, _script(tmp_path), str(small_night.root), str(out)],
                          env=ENV, capture_output=True, text=True, timeout=600)
     assert run.returncode == 0, run.stderr[-2000:]
     summary = pd.read_csv(out / "summary.csv", keep_default_na=False)
