@@ -422,11 +422,10 @@ PROFILE_RULES: dict[str, dict[str, validation.Rule]] = {
                "axis_pixel_px": _POSITIVE, "tilt_deg": _POSITIVE},
 }
 
-_HEADER_DEFAULT = Optional(lambda v: v if isinstance(v, (str, int, float)) and not (
-    isinstance(v, float) and not math.isfinite(v)) else _bad_default(v))
-
-
-def _bad_default(value: Any) -> None:
+def _header_default(value: Any) -> str | int | float:
+    """A header default: a text or a finite number, as a header value would be."""
+    if isinstance(value, str) or (isinstance(value, (int, float)) and math.isfinite(value)):
+        return value
     raise Invalid(f"must be a text or a finite number, got {validation.describe(value)}")
 
 
@@ -530,7 +529,7 @@ def _header_fields(table: Any, src: str) -> dict[str, HeaderField]:
     for quantity, spec in table.items():
         if isinstance(spec, str):
             spec = {"keyword": spec}
-        values = check_table(spec, {"keyword": Text(max_length=70), "default": _HEADER_DEFAULT},
+        values = check_table(spec, {"keyword": Text(max_length=70), "default": Optional(_header_default)},
                              where=f"{src}: [header.{quantity}]", error=ProfileError,
                              required=("keyword",))
         header[quantity] = HeaderField(**values)
