@@ -373,13 +373,20 @@ def parse_lamps(text: str) -> tuple[str, ...]:
     return validation.parse_lamps(text)
 
 
+def _span(value: Any) -> tuple[int, int]:
+    """A ``[start, stop]`` pixel range, 0-based, stop excluded, not empty."""
+    start, stop = Sequence(Integer(low=0), length=2, label="[start, stop]")(value)
+    if stop <= start:
+        raise Invalid(f"[start, stop] {[start, stop]} is empty (start must be below stop)")
+    return start, stop
+
+
 def _region(value: Any) -> tuple[int, int, int, int]:
     """A ``{rows = [start, stop], columns = [start, stop]}`` table."""
-    span = Sequence(Integer(low=0), length=2, increasing=True, label="[start, stop]")
     if not isinstance(value, dict) or set(value) != {"rows", "columns"}:
         raise Invalid(f"must be a table {{rows = [start, stop], columns = [start, stop]}}, "
                       f"got {validation.describe(value)}")
-    rows, cols = span(value["rows"]), span(value["columns"])
+    rows, cols = _span(value["rows"]), _span(value["columns"])
     return (*rows, *cols)
 
 
@@ -412,8 +419,7 @@ PROFILE_RULES: dict[str, dict[str, validation.Rule]] = {
                  "read_noise_e": Real(low=0), "overscan": _region, "trim": _region,
                  "bias_adu": Real(), "axis_pixel": Real(), "tilt_deg": Real(low=-45, high=45),
                  "hdu": _hdu,
-                 "slit_rows": Sequence(Integer(low=0), length=2, increasing=True,
-                                       label="[start, stop]")},
+                 "slit_rows": _span},
     "approximate": {"central_wavelength_nm": _POSITIVE, "dispersion_nm_per_px": _POSITIVE,
                     "central_wavelength_uncertainty": Real(low=0, high=1, open_low=True),
                     "dispersion_uncertainty": Real(low=0, high=1, open_low=True)},
