@@ -203,3 +203,31 @@ def test_good_master_bias_is_used(small_night, tmp_path):
     biases = result.summary[result.summary["kind"] == "bias"]
     assert (biases["status"] == "ok").all()
     assert not biases["reason"].str.contains("WARNING").any()
+
+
+def test_master_bias_checked_against_the_overscan(tmp_path):
+    # a detector with an overscan strip: frames whose overscan says 474 ADU (the case)
+    from wavecal.night.bias import bias_tolerance_adu, check_master_bias
+    from wavecal.profile import profile_from_dict
+
+    profile = profile_from_dict({
+        "grating": {"mount": "reflection", "grooves_per_mm": 300.0, "deviation_deg": 30.0},
+        "camera": {"focal_length_mm": 250.0},
+        "detector": {"pixel_size_um": 15.0, "shape": [32, 288], "gain_e_per_adu": 1.2,
+                     "read_noise_e": 4.0,
+                     "overscan": {"rows": [0, 32], "columns": [264, 288]},
+                     "trim": {"rows": [0, 32], "columns": [0, 256]}},
+        "header": {"grating_angle": {"keyword": "GRTANGLE", "default": 10.0}}})
+    rng = np.random.default_rng(3)
+    frame = 474.0 + rng.normal(0.0, 3.0, (32, 288))
+    frame[:, :256] += 200.0  # light in the illuminated part only
+    path = tmp_path / "arc.fits"
+    fits.PrimaryHDU(frame.astype(np.float32)).writeto(path)
+    tolerance = bias_tolerance_adu(profile)
+    assert tolerance == pytest.approx(max(10.0, 5 * 4.0 / 1.2))
+    wrong = check_master_bias(np.full((32, 288), 1000.0, np.float32), [path], profile)
+    assert not wrong.ok and wrong.reference == "overscan"
+    assert wrong.offset_adu == pytest.approx(526.0, abs=1.0)
+    assert "their overscan" in wrong.message
+    right = check_master_bias(np.full((32, 288), 476.0, np.float32), [path], profile)
+    assert right.ok and right.offset_adu == pytest.approx(2.0, abs=1.0)
