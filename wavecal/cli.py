@@ -19,7 +19,6 @@ import os
 import sys
 import time
 from pathlib import Path
-
 from typing import NoReturn
 
 from .errors import FrameError, WavecalError
