@@ -77,9 +77,9 @@ def test_workers_end_when_the_main_process_is_killed(small_night, tmp_path):
     out = tmp_path / "out"
     proc = subprocess.Popen([sys.executable, _script(tmp_path), str(small_night.root), str(out)],
                             env=ENV, stdout=subprocess.DEVNULL, start_new_session=True)
+    children: set[int] = set()
     try:
         deadline = time.monotonic() + 120
-        children: set[int] = set()
         while time.monotonic() < deadline and proc.poll() is None:
             children = _descendants(proc.pid)
             if len(children) >= 3:  # two workers and the multiprocessing resource tracker
@@ -95,8 +95,8 @@ def test_workers_end_when_the_main_process_is_killed(small_night, tmp_path):
             time.sleep(0.05)
         survivors = [c for c in children if _alive(c)]
         assert not survivors, f"still running 2 s after the kill: {survivors}"
-    finally:
-        for c in _descendants(proc.pid) | {proc.pid}:
+    finally:  # never leave a process behind, even when the test fails
+        for c in children | _descendants(proc.pid) | {proc.pid}:
             if _alive(c):
                 os.kill(c, signal.SIGKILL)
 
