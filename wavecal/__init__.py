@@ -20,8 +20,24 @@ try:
 except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0.0.0+unknown"
 
-from .calibrate import calibrate_frame  # noqa: E402
-from .profile import load_profile  # noqa: E402
-from .solution import Solution, load_solution  # noqa: E402
-
 __all__ = ["__version__", "calibrate_frame", "load_profile", "load_solution", "Solution"]
+
+#: Where each public name lives; imported on first use, so that ``import wavecal`` (and the
+#: command line's ``--help``) stays fast.
+_LAZY = {"calibrate_frame": "calibrate", "load_profile": "profile", "load_solution": "solution",
+         "Solution": "solution"}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        from importlib import import_module
+
+        value = getattr(import_module(f".{_LAZY[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    msg = f"module 'wavecal' has no attribute {name!r}"
+    raise AttributeError(msg)
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))

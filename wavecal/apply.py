@@ -52,7 +52,8 @@ from .resample import (
     resample,
     user_grid,
 )
-from .solution import load_solution
+from .solution import SPEED_OF_LIGHT_KMS, load_solution
+from .validation import MAX_GRID_BINS, Integer, Real, option_type
 from .wcs import (
     AIRVAC_WAVECAL,
     SpectralWCS,
@@ -177,10 +178,34 @@ def _grid_over(edges: np.ndarray, kind: str, n_pixels: int, *, start_nm: float |
         raise ValueError(msg)
     lo = float(np.min(edges)) if start_nm is None else float(start_nm)
     hi = float(np.max(edges)) if stop_nm is None else float(stop_nm)
-    bins = None if step is not None else (n_bins or n_pixels)
+    bins = None if step is not None else (n_pixels if n_bins is None else n_bins)
+    _check_grid_size(kind, lo, hi, step, bins)
     if kind == "linear":
         return linear_grid(lo, hi, step_nm=step, n_bins=bins)
     return log_grid(lo, hi, velocity_step_kms=step, n_bins=bins)
+
+
+def _check_grid_size(kind: str, lo: float, hi: float, step: float | None,
+                     bins: int | None) -> None:
+    """Refuse a grid that is empty, reversed or larger than :data:`MAX_GRID_BINS` bins (before
+    allocating it)."""
+    if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
+        msg = (f"grid from {lo:g} nm (--start) to {hi:g} nm (--stop): the start must be below "
+               "the stop, both positive")
+        raise WavecalError(msg)
+    if step is not None and not (math.isfinite(step) and step > 0):
+        msg = f"grid step (--step) must be a positive number, got {step!r}"
+        raise WavecalError(msg)
+    if step is None:
+        n, what = bins, "--bins"
+    elif kind == "linear":
+        n, what = (hi - lo) / step, f"--step {step:g} nm"
+    else:
+        n, what = math.log(hi / lo) / (step / SPEED_OF_LIGHT_KMS), f"--step {step:g} km/s"
+    if not 1 <= n <= MAX_GRID_BINS:
+        msg = (f"grid of {n:.3g} bins ({what} over {lo:.6g}-{hi:.6g} nm): "
+               f"allowed 1 to {MAX_GRID_BINS}")
+        raise WavecalError(msg)
 
 
 def _pixel_edges(solution: Any, shape: tuple[int, ...], axis: int, x0: float, y0: float,
@@ -556,8 +581,14 @@ def output_path_for(frame: Path, out: Path, n_frames: int) -> Path:
 # Command line
 # ------------------------------------------------------------------------------------------------
 
+#: A wavelength bound of a grid on the command line (nm).
+_WAVELENGTH = Real(low=0, open_low=True)
+
+
 def _hdu_arg(text: str) -> int | str:
-    return int(text) if text.lstrip("-").isdigit() else text
+    if text.lstrip("-").isdigit():
+        return option_type(Integer(low=0), int)(text)
+    return text
 
 
 def _origin_arg(text: str) -> tuple[int, int]:
@@ -566,6 +597,9 @@ def _origin_arg(text: str) -> tuple[int, int]:
     except ValueError:
         msg = f"origin must be ROW,COLUMN (0-based raw-frame pixel), got {text!r}"
         raise argparse.ArgumentTypeError(msg) from None
+    if row < 0 or col < 0:
+        msg = f"origin ROW,COLUMN must not be negative, got {text!r}"
+        raise argparse.ArgumentTypeError(msg)
     return row, col
 
 
@@ -583,13 +617,14 @@ def add_apply_arguments(parser: argparse.ArgumentParser) -> None:
                         help="keep the pixels and write the WCS only (default), or resample "
                              "onto a linear, log-wavelength or user grid (flux-conserving)")
     grid = parser.add_argument_group("grid (with --resample)")
-    grid.add_argument("--start", type=float, dest="grid_start", metavar="NM",
+    grid.add_argument("--start", type=option_type(_WAVELENGTH), dest="grid_start", metavar="NM",
                       help="first bin edge in nm (default: shortest wavelength of the frame)")
-    grid.add_argument("--stop", type=float, dest="grid_stop", metavar="NM",
+    grid.add_argument("--stop", type=option_type(_WAVELENGTH), dest="grid_stop", metavar="NM",
                       help="last bin edge in nm (default: longest wavelength of the frame)")
-    grid.add_argument("--step", type=float, dest="grid_step", metavar="STEP",
+    grid.add_argument("--step", type=option_type(Real(low=0, open_low=True)), dest="grid_step", metavar="STEP",
                       help="bin width: nm for linear, km/s for log (default: from --bins)")
-    grid.add_argument("--bins", type=int, dest="grid_bins", metavar="N",
+    grid.add_argument("--bins", type=option_type(Integer(low=1, high=MAX_GRID_BINS), int),
+                      dest="grid_bins", metavar="N",
                       help="number of bins (default: pixels along the dispersion)")
     grid.add_argument("--grid-file", type=Path, dest="grid_file", metavar="FILE",
                       help="text file of bin edges in nm, increasing (for --resample user)")

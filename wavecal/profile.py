@@ -7,8 +7,8 @@ README ("Instrument profiles").
 """
 from __future__ import annotations
 
+import dataclasses
 import math
-import re
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -19,7 +19,19 @@ if sys.version_info >= (3, 11):
 else:  # pragma: no cover - exercised only on Python 3.10
     import tomli as tomllib
 
+from . import validation
 from .errors import HeaderError, ProfileError
+from .validation import (
+    Choice,
+    Integer,
+    Invalid,
+    Lamps,
+    Optional,
+    Real,
+    Sequence,
+    Text,
+    check_table,
+)
 
 __all__ = [
     "MOUNTS",
@@ -31,8 +43,11 @@ __all__ = [
     "Priors",
     "HeaderField",
     "InstrumentProfile",
+    "PROFILE_RULES",
     "load_profile",
     "example_profile_paths",
+    "parse_lamps",
+    "profile_from_dict",
 ]
 
 #: Supported dispersing mounts. ``reflection``: reflection grating with a fixed angle between the
@@ -328,186 +343,203 @@ class InstrumentProfile:
                 if self.lamps:
                     return self.lamps
                 raise
-            return parse_lamps(str(raw))
+            try:
+                return parse_lamps(str(raw))
+            except Invalid as exc:
+                where = f"{path}: " if path is not None else ""
+                msg = f"{where}header keyword {self.header['lamps'].keyword!r}: {exc}"
+                raise HeaderError(msg) from None
         return self.lamps
-
-
-_ELEMENTS = ("Hg", "Ne", "Ar", "Kr", "Xe", "He", "Cd", "Zn", "Na")
-_ELEMENT_NAMES = {"mercury": "Hg", "neon": "Ne", "argon": "Ar", "krypton": "Kr", "xenon": "Xe",
-                  "helium": "He", "cadmium": "Cd", "zinc": "Zn", "sodium": "Na"}
-
-
-def _split_symbols(token: str) -> list[str] | None:
-    """Split a word made only of element symbols ("HgAr"); None if it is anything else."""
-    if not token:
-        return []
-    for element in _ELEMENTS:
-        if token[:2].lower() == element.lower():
-            rest = _split_symbols(token[2:])
-            if rest is not None:
-                return [element, *rest]
-    return None
 
 
 def parse_lamps(text: str) -> tuple[str, ...]:
     """Element symbols named in a free-text lamp description, in order of appearance.
 
-    Words are element symbols, run together or not ("HgAr", "Hg+Ar", "ne, xe"), or element
-    names ("neon"); any other word is ignored.
+    Words are element symbols, run together or not ("HgAr", "Hg+Ar", "ne, xe"), element names
+    ("neon") or words that name no lamp ("lamp", "none" ...); see
+    :func:`wavecal.validation.parse_lamps`.
 
     >>> parse_lamps("HgAr + Ne")
     ('Hg', 'Ar', 'Ne')
     >>> parse_lamps("none")
     ()
+
+    Raises
+    ------
+    ValueError
+        For an unknown word or an element without a shipped line list (the message lists the
+        known ones).
     """
-    ordered: list[str] = []
-    for token in re.findall(r"[A-Za-z]+", text):
-        symbols = [_ELEMENT_NAMES[token.lower()]] if token.lower() in _ELEMENT_NAMES \
-            else _split_symbols(token) or []
-        ordered.extend(e for e in symbols if e not in ordered)
-    return tuple(ordered)
+    return validation.parse_lamps(text)
 
 
-def _region(value: Any, name: str, source: str) -> tuple[int, int, int, int] | None:
-    if value is None:
-        return None
-    try:
-        rows, cols = value["rows"], value["columns"]
-        region = (int(rows[0]), int(rows[1]), int(cols[0]), int(cols[1]))
-    except (KeyError, TypeError, IndexError, ValueError):
-        msg = f"{source}: [detector] {name} must be a table {{rows = [start, stop], columns = [start, stop]}}"
-        raise ProfileError(msg) from None
-    if region[1] <= region[0] or region[3] <= region[2] or min(region) < 0:
-        msg = f"{source}: [detector] {name} {region} is empty or negative"
-        raise ProfileError(msg)
-    return region
+def _span(value: Any) -> tuple[int, int]:
+    """A ``[start, stop]`` pixel range, 0-based, stop excluded, not empty."""
+    start, stop = Sequence(Integer(low=0), length=2, label="[start, stop]")(value)
+    if stop <= start:
+        raise Invalid(f"[start, stop] {[start, stop]} is empty (start must be below stop)")
+    return start, stop
 
 
-def _span(value: Any, name: str, source: str) -> tuple[int, int]:
-    try:
-        start, stop = (int(v) for v in value)
-    except (TypeError, ValueError):
-        msg = f"{source}: [detector] {name} must be [start, stop]"
-        raise ProfileError(msg) from None
-    if not 0 <= start < stop:
-        msg = f"{source}: [detector] {name} [{start}, {stop}] is empty or negative"
-        raise ProfileError(msg)
-    return (start, stop)
+def _region(value: Any) -> tuple[int, int, int, int]:
+    """A ``{rows = [start, stop], columns = [start, stop]}`` table."""
+    if not isinstance(value, dict) or set(value) != {"rows", "columns"}:
+        raise Invalid(f"must be a table {{rows = [start, stop], columns = [start, stop]}}, "
+                      f"got {validation.describe(value)}")
+    rows, cols = _span(value["rows"]), _span(value["columns"])
+    return (*rows, *cols)
 
 
-def _build(table: dict[str, Any], cls: type, section: str, source: str) -> Any:
-    names = set(cls.__dataclass_fields__)
-    unknown = set(table) - names
-    if unknown:
-        msg = f"{source}: unknown key(s) {sorted(unknown)} in [{section}]; allowed: {sorted(names)}"
-        raise ProfileError(msg)
-    try:
-        return cls(**table)
-    except TypeError as exc:
-        msg = f"{source}: [{section}] is incomplete: {exc}"
-        raise ProfileError(msg) from None
+def _hdu(value: Any) -> int | str:
+    if isinstance(value, str) and value:
+        return value
+    return Integer(low=0)(value)
 
 
-def _positive(value: float, what: str, source: str) -> None:
-    if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
-        msg = f"{source}: {what} must be a positive number, got {value!r}"
-        raise ProfileError(msg)
+_POSITIVE = Real(low=0, open_low=True)
+_ANGLE = Real(low=-180, high=180)
+
+#: The rule of every profile key, by section.
+PROFILE_RULES: dict[str, dict[str, validation.Rule]] = {
+    "instrument": {"name": Text(max_length=200), "medium": Choice(("air", "vacuum")),
+                   "lamps": Lamps(),
+                   "sensitivity_nm": Sequence(_POSITIVE, length=2, increasing=True,
+                                              label="[shortest, longest] in nm")},
+    "grating": {"mount": Choice(MOUNTS), "grooves_per_mm": Real(low=0), "order": Integer(low=1),
+                "deviation_deg": _ANGLE, "angle_zero_point_deg": Real(low=-360, high=360),
+                "angle_scale": Real(nonzero=True), "prism_apex_deg": Real(low=0, high=90),
+                "prism_index": Real(low=1, high=5), "prism_index_slope_per_nm": Real(),
+                "prism_reference_nm": _POSITIVE, "blaze_nm": _POSITIVE},
+    "camera": {"focal_length_mm": _POSITIVE, "collimator_focal_length_mm": _POSITIVE},
+    "detector": {"pixel_size_um": _POSITIVE,
+                 "shape": Sequence(Integer(low=1), length=2, label="[rows, columns]"),
+                 "dispersion_axis": Integer(choices=(0, 1)),
+                 "wavelength_increases": Integer(choices=(1, -1)),
+                 "saturation_adu": _POSITIVE, "gain_e_per_adu": _POSITIVE,
+                 "read_noise_e": Real(low=0), "overscan": _region, "trim": _region,
+                 "bias_adu": Real(), "axis_pixel": Real(), "tilt_deg": Real(low=-45, high=45),
+                 "hdu": _hdu,
+                 "slit_rows": _span},
+    "approximate": {"central_wavelength_nm": _POSITIVE, "dispersion_nm_per_px": _POSITIVE,
+                    "central_wavelength_uncertainty": Real(low=0, high=1, open_low=True),
+                    "dispersion_uncertainty": Real(low=0, high=1, open_low=True)},
+    "priors": {"grating_angle_deg": _POSITIVE, "focal_length_fraction": Real(low=0, high=1,
+                                                                             open_low=True),
+               "axis_pixel_px": _POSITIVE, "tilt_deg": _POSITIVE},
+}
+
+def _header_default(value: Any) -> str | int | float:
+    """A header default: a text or a finite number, as a header value would be."""
+    if isinstance(value, str) or (isinstance(value, (int, float)) and math.isfinite(value)):
+        return value
+    raise Invalid(f"must be a text or a finite number, got {validation.describe(value)}")
+
+
+def _section(data: dict[str, Any], name: str, cls: type, src: str) -> Any:
+    """Check one section against :data:`PROFILE_RULES` and build its dataclass."""
+    table = data.pop(name)
+    required = tuple(f.name for f in cls.__dataclass_fields__.values()
+                     if f.default is dataclasses.MISSING
+                     and f.default_factory is dataclasses.MISSING)
+    values = check_table(table, PROFILE_RULES[name], where=f"{src}: [{name}]", error=ProfileError,
+                         required=required)
+    return cls(**values)
 
 
 def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>") -> InstrumentProfile:
     """Build an :class:`InstrumentProfile` from a parsed TOML document.
 
+    Every key is checked against :data:`PROFILE_RULES` (type and range), then the sections
+    against each other (regions inside the detector, the sections a mount needs).
+
     Raises
     ------
     ProfileError
-        Naming the source and the offending section or key.
+        One line naming the source, the section and key, and the problem.
     """
     src = str(source)
     data = dict(data)
-    inst = data.pop("instrument", {})
+    unknown = sorted(set(data) - {*PROFILE_RULES, "header"})
+    if unknown:
+        msg = f"{src}: unknown section(s) {unknown}; allowed: {sorted({*PROFILE_RULES, 'header'})}"
+        raise ProfileError(msg)
+    inst = check_table(data.pop("instrument", {}), PROFILE_RULES["instrument"],
+                       where=f"{src}: [instrument]", error=ProfileError)
     for required in ("grating", "detector"):
         if required not in data:
             msg = f"{src}: missing [{required}] section"
             raise ProfileError(msg)
-    grating = _build(dict(data.pop("grating")), GratingSpec, "grating", src)
-    if grating.mount not in MOUNTS:
-        msg = f"{src}: [grating] mount {grating.mount!r} is not one of {MOUNTS}"
-        raise ProfileError(msg)
-    if grating.order < 1:
-        msg = f"{src}: [grating] order must be a positive integer, got {grating.order}"
-        raise ProfileError(msg)
-    det = dict(data.pop("detector"))
-    det["shape"] = tuple(int(v) for v in det.get("shape", ()))
-    if len(det["shape"]) != 2:
-        msg = f"{src}: [detector] shape must be [rows, columns]"
-        raise ProfileError(msg)
-    det["overscan"] = _region(det.get("overscan"), "overscan", src)
-    det["trim"] = _region(det.get("trim"), "trim", src)
-    if det.get("slit_rows") is not None:
-        det["slit_rows"] = _span(det["slit_rows"], "slit_rows", src)
-    detector = _build(det, DetectorSpec, "detector", src)
-    if detector.dispersion_axis not in (0, 1) or detector.wavelength_increases not in (1, -1):
-        msg = f"{src}: [detector] dispersion_axis must be 0 or 1 and wavelength_increases +1 or -1"
-        raise ProfileError(msg)
-    if detector.slit_rows is not None and detector.slit_rows[1] > detector.shape[
-            1 - detector.dispersion_axis]:
-        msg = (f"{src}: [detector] slit_rows {list(detector.slit_rows)} run beyond the "
-               f"{detector.shape[1 - detector.dispersion_axis]} pixels of the spatial axis")
-        raise ProfileError(msg)
-    _positive(detector.pixel_size_um, "[detector] pixel_size_um", src)
-    _positive(detector.gain_e_per_adu, "[detector] gain_e_per_adu", src)
+    grating = _section(data, "grating", GratingSpec, src)
+    detector = _section(data, "detector", DetectorSpec, src)
+    _check_detector(detector, src)
 
     approximate = None
     if grating.mount == "approximate":
         if "approximate" not in data:
             msg = f"{src}: mount 'approximate' needs an [approximate] section"
             raise ProfileError(msg)
-        approximate = _build(dict(data.pop("approximate")), ApproximateSpec, "approximate", src)
-        _positive(approximate.dispersion_nm_per_px, "[approximate] dispersion_nm_per_px", src)
+        approximate = _section(data, "approximate", ApproximateSpec, src)
         camera = CameraSpec(focal_length_mm=float("nan"))
         data.pop("camera", None)
     else:
-        _positive(grating.grooves_per_mm, "[grating] grooves_per_mm", src)
+        if grating.grooves_per_mm <= 0:
+            msg = (f"{src}: [grating] grooves_per_mm must be a positive number, got "
+                   f"{grating.grooves_per_mm!r}")
+            raise ProfileError(msg)
         if "camera" not in data:
             msg = f"{src}: missing [camera] section"
             raise ProfileError(msg)
-        camera = _build(dict(data.pop("camera")), CameraSpec, "camera", src)
-        _positive(camera.focal_length_mm, "[camera] focal_length_mm", src)
+        camera = _section(data, "camera", CameraSpec, src)
         data.pop("approximate", None)
 
-    priors = _build(dict(data.pop("priors", {})), Priors, "priors", src)
-    header: dict[str, HeaderField] = {}
-    for quantity, spec in dict(data.pop("header", {})).items():
-        if quantity not in HEADER_QUANTITIES:
-            msg = f"{src}: [header] {quantity!r} is not one of {HEADER_QUANTITIES}"
-            raise ProfileError(msg)
-        if isinstance(spec, str):
-            spec = {"keyword": spec}
-        header[quantity] = _build(dict(spec), HeaderField, f"header.{quantity}", src)
+    priors = _section(data, "priors", Priors, src) if "priors" in data else Priors()
+    header = _header_fields(data.pop("header", {}), src)
     if grating.mount != "approximate" and "grating_angle" not in header:
         msg = f"{src}: [header] must map 'grating_angle' (give a default for a fixed grating)"
         raise ProfileError(msg)
-    if data:
-        msg = f"{src}: unknown section(s) {sorted(data)}"
-        raise ProfileError(msg)
-    medium = inst.get("medium", "air")
-    if medium not in ("air", "vacuum"):
-        msg = f"{src}: [instrument] medium must be 'air' or 'vacuum', got {medium!r}"
-        raise ProfileError(msg)
-    sensitivity = inst.get("sensitivity_nm")
     return InstrumentProfile(
-        name=str(inst.get("name", Path(src).stem)),
-        medium=medium,
+        name=inst.get("name", Path(src).stem),
+        medium=inst.get("medium", "air"),
         grating=grating,
         camera=camera,
         detector=detector,
         priors=priors,
         header=header,
-        lamps=tuple(inst.get("lamps", ())),
+        lamps=inst.get("lamps", ()),
         approximate=approximate,
-        sensitivity_nm=tuple(float(v) for v in sensitivity) if sensitivity else None,
+        sensitivity_nm=inst.get("sensitivity_nm"),
         source=Path(src) if src != "<profile>" else None,
     )
+
+
+def _check_detector(detector: DetectorSpec, src: str) -> None:
+    """Regions of the detector inside its shape."""
+    rows, cols = detector.shape
+    for name in ("overscan", "trim"):
+        region = getattr(detector, name)
+        if region is not None and (region[1] > rows or region[3] > cols):
+            msg = (f"{src}: [detector] {name} rows {list(region[:2])} columns {list(region[2:])} "
+                   f"run beyond the detector shape [{rows}, {cols}]")
+            raise ProfileError(msg)
+    spatial = detector.shape[1 - detector.dispersion_axis]
+    if detector.slit_rows is not None and detector.slit_rows[1] > spatial:
+        msg = (f"{src}: [detector] slit_rows {list(detector.slit_rows)} run beyond the "
+               f"{spatial} pixels of the spatial axis")
+        raise ProfileError(msg)
+
+
+def _header_fields(table: Any, src: str) -> dict[str, HeaderField]:
+    rules = {quantity: (lambda v: v) for quantity in HEADER_QUANTITIES}
+    table = check_table(table, rules, where=f"{src}: [header]", error=ProfileError)
+    header: dict[str, HeaderField] = {}
+    for quantity, spec in table.items():
+        if isinstance(spec, str):
+            spec = {"keyword": spec}
+        values = check_table(spec, {"keyword": Text(max_length=70), "default": Optional(_header_default)},
+                             where=f"{src}: [header.{quantity}]", error=ProfileError,
+                             required=("keyword",))
+        header[quantity] = HeaderField(**values)
+    return header
 
 
 def load_profile(path: str | Path) -> InstrumentProfile:

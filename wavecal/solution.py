@@ -29,6 +29,18 @@ import pandas as pd
 
 from ._atomic import atomic_write_text
 from .errors import SolutionFileError
+from .validation import (
+    Boolean,
+    Choice,
+    Integer,
+    Optional,
+    Real,
+    Rule,
+    Sequence,
+    Table,
+    Text,
+    check_table,
+)
 from .airvac import air_to_vacuum, vacuum_to_air
 from .fit import wavelength_sigma
 from .optics import GratingModel
@@ -149,18 +161,25 @@ class Solution:
 
     def pixel(self, wavelength_nm, y=None, *, medium: str | None = None):
         """0-based pixel along the dispersion axis where ``wavelength_nm`` lands on row ``y``
-        (default the reference row); NaN if nowhere.
+        (default the reference row).
 
-        ``medium`` says which medium ``wavelength_nm`` is in (default :attr:`medium`).
+        NaN where the wavelength lands off the detector, i.e. outside the pixels ``-0.5`` to
+        ``n_pixels - 0.5`` (the outer edges of the first and last pixel, ``n_pixels`` of the
+        model), or cannot be diffracted at all. ``medium`` says which medium ``wavelength_nm``
+        is in (default :attr:`medium`).
         """
+        model = self._require_model()
         lam = self._to_medium(np.asarray(wavelength_nm, dtype=float), medium or self.medium,
                               self.medium)
-        x = self._require_model().pixel(lam)
-        if y is None:
-            return x
-        if self.slit is None:
-            return x + np.zeros(np.broadcast(np.asarray(x), np.asarray(y)).shape)
-        return x + self.slit.shift(x, y)
+        x = model.pixel(lam)
+        if y is not None:
+            x = x + (np.zeros(np.broadcast(np.asarray(x), np.asarray(y)).shape)
+                     if self.slit is None else self.slit.shift(x, y))
+        with np.errstate(invalid="ignore"):
+            off = ~((x >= -0.5) & (x <= model.n_pixels - 0.5))
+        if np.ndim(x) == 0:
+            return float("nan") if off else x
+        return np.where(off, np.nan, x)
 
     def _reference_x(self, x, y):
         """Position on the reference row of the point ``x`` on row ``y``."""
@@ -287,9 +306,82 @@ _FLOAT_LINE_COLUMNS = frozenset(("x", "x_err", "fwhm", "flux", "snr", "line_wave
                                  "line_intensity", "wavelength_fit", "residual_px", "residual_nm",
                                  "residual_kms"))
 
+_NUMBER_OR_NULL = Optional(Real())
+_POSITIVE = Real(low=0, open_low=True)
+
+#: Rules of the model table (:class:`~wavecal.optics.GratingModel` fields).
+MODEL_RULES: dict[str, Rule] = {
+    "mount": Choice(("reflection", "transmission", "grism")), "grooves_per_mm": _POSITIVE,
+    "order": Integer(low=1), "grating_angle_deg": Real(low=-90, high=90),
+    "deviation_deg": Real(low=-180, high=180), "focal_length_mm": _POSITIVE,
+    "pixel_mm": _POSITIVE, "axis_pixel": Real(), "n_pixels": Integer(low=1),
+    "tilt_deg": Real(low=-89, high=89), "direction": Integer(choices=(1, -1)),
+    "distortion": Sequence(Real()), "prism_apex_deg": Real(low=0, high=90),
+    "prism_index": Real(low=1, high=5), "prism_index_slope_per_nm": Real(),
+    "prism_reference_nm": _POSITIVE,
+}
+
+#: Rules of the top-level entries of a solution file (the ``lines`` columns are checked apart).
+SOLUTION_RULES: dict[str, Rule] = {
+    "status": Choice(STATUSES), "reasons": Sequence(Text(empty=True)),
+    "medium": Choice(("air", "vacuum")), "wavelength_unit": Choice(("nm",)),
+    "pixel_convention": Text(), "dispersion_axis": Integer(choices=(0, 1)),
+    "frame": Optional(Text(empty=True)), "profile": Text(empty=True),
+    "software_version": Text(empty=True), "lamps": Sequence(Text()),
+    "covered_range_px": Sequence(_NUMBER_OR_NULL, length=2), "model": Optional(Table()),
+    "slit": Optional(Table()), "parameters": Sequence(Table()), "correlation": Table(),
+    "covariance": Optional(Sequence(Sequence(_NUMBER_OR_NULL))), "statistics": Table(),
+    "lines": Table(),
+}
+_REQUIRED = ("status", "reasons", "medium", "model", "lines", "statistics", "covered_range_px")
+
+_LINE_RULES: dict[str, Rule] = {
+    **{col: _NUMBER_OR_NULL for col in _FLOAT_LINE_COLUMNS}, "flags": Integer(low=0),
+    "identification": Text(), "element": Optional(Text(empty=True)),
+    "line_verified": Optional(Boolean()),
+}
+
 
 def _float_or_nan(value: Any) -> float:
     return math.nan if value is None else float(value)
+
+
+def _checked(data: Any, path: Path) -> dict[str, Any]:
+    """The content of a solution file, every entry checked (type, range, known values)."""
+    where = f"{path}:"
+    data = check_table(data, SOLUTION_RULES, where=where, error=SolutionFileError,
+                       required=_REQUIRED, unknown_ok=True)
+    if data["model"] is not None:
+        data["model"] = check_table(data["model"], MODEL_RULES, where=f"{where} model",
+                                    error=SolutionFileError,
+                                    required=tuple(k for k in MODEL_RULES if k not in (
+                                        "tilt_deg", "direction", "distortion") and not
+                                                   k.startswith("prism")))
+    elif data["status"] != "failed":
+        msg = f"{path}: status {data['status']!r} but no model (only a failed solution has none)"
+        raise SolutionFileError(msg)
+    lines = check_table(data["lines"], {c: Sequence(_LINE_RULES[c]) for c in LINE_COLUMNS},
+                        where=f"{where} lines", error=SolutionFileError, required=LINE_COLUMNS)
+    if len({len(v) for v in lines.values()}) > 1:
+        msg = f"{path}: lines columns differ in length ({sorted({len(v) for v in lines.values()})})"
+        raise SolutionFileError(msg)
+    data["lines"] = lines
+    corr = check_table(data.get("correlation", {}), {"names": Sequence(Text()),
+                                                     "matrix": Sequence(Sequence(_NUMBER_OR_NULL))},
+                       where=f"{where} correlation", error=SolutionFileError)
+    n = len(corr.get("names", ()))
+    for name in ("covariance", "matrix"):
+        matrix = data.get("covariance") if name == "covariance" else corr.get("matrix")
+        if matrix and (len(matrix) != n or any(len(row) != n for row in matrix)):
+            msg = f"{path}: {name} is not {n} x {n} (one row and column per fitted parameter)"
+            raise SolutionFileError(msg)
+    data["correlation"] = corr
+    bad = [k for k, v in data["statistics"].items()
+           if not (v is None or isinstance(v, (int, float, str, bool)))]
+    if bad:
+        msg = f"{path}: statistics {bad[0]} must be a number, a text or null"
+        raise SolutionFileError(msg)
+    return data
 
 
 def load_solution(path: str | Path) -> Solution:
@@ -300,7 +392,8 @@ def load_solution(path: str | Path) -> Solution:
     Raises
     ------
     SolutionFileError
-        If the file is missing, not JSON, of another schema or of an unknown version.
+        If the file is missing, not JSON, of another schema or of an unknown version, or an entry
+        has the wrong type or is out of range (:data:`SOLUTION_RULES`, :data:`MODEL_RULES`).
     """
     path = Path(path)
     try:
@@ -315,10 +408,11 @@ def load_solution(path: str | Path) -> Solution:
         msg = f"{path}: not a wavecal solution file (no 'schema': 'wavecal-solution')"
         raise SolutionFileError(msg)
     version = data.get("schema_version")
-    if version not in READABLE_VERSIONS:
+    if isinstance(version, bool) or version not in READABLE_VERSIONS:
         msg = (f"{path}: solution schema version {version!r} is not supported (this wavecal reads "
                f"versions {', '.join(map(str, READABLE_VERSIONS))})")
         raise SolutionFileError(msg)
+    data = _checked(data, path)
     try:
         model = None
         if data["model"] is not None:
@@ -326,7 +420,7 @@ def load_solution(path: str | Path) -> Solution:
             fields["distortion"] = tuple(fields.get("distortion", ()))
             model = GratingModel(**fields)
         lines = pd.DataFrame({col: (np.array(data["lines"][col], dtype=float)  # None -> NaN
-                                    if col in _FLOAT_LINE_COLUMNS else data["lines"][col])
+                                    if col in _FLOAT_LINE_COLUMNS else list(data["lines"][col]))
                               for col in LINE_COLUMNS})
         cov = data.get("covariance")
         corr = data.get("correlation") or {}
@@ -346,7 +440,7 @@ def load_solution(path: str | Path) -> Solution:
             frame=data.get("frame"),
             profile=data.get("profile", ""),
             lamps=tuple(data.get("lamps", ())),
-            dispersion_axis=int(data.get("dispersion_axis", 1)),
+            dispersion_axis=data.get("dispersion_axis", 1),
             software_version=data.get("software_version", ""),
             slit=None if slit is None else SlitShift.from_dict(slit),
         )

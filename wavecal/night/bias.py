@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import warnings
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -10,9 +11,12 @@ from astropy.io import fits
 from astropy.stats import sigma_clip
 
 from .._atomic import atomic_path
-from ..errors import FrameError
+from ..errors import FrameError, WavecalError
+from ..frames import read_frame
+from ..profile import InstrumentProfile
 
-__all__ = ["combine_bias", "write_master_bias", "read_master_bias"]
+__all__ = ["BiasCheck", "bias_tolerance_adu", "check_master_bias", "combine_bias",
+           "write_master_bias", "read_master_bias"]
 
 
 def _raw(path: Path) -> np.ndarray:
@@ -88,3 +92,70 @@ def read_master_bias(path: str | Path) -> np.ndarray:
     """A master bias written by :func:`write_master_bias`."""
     with fits.open(path, memmap=False) as hdul:
         return np.asarray(hdul[0].data, dtype=np.float32)
+
+
+def bias_tolerance_adu(profile: InstrumentProfile) -> float:
+    """Largest difference (ADU) allowed between a master bias and a frame's own bias estimate:
+    5 times the read noise, at least 10 ADU (a bias level drifts by a few ADU over a night;
+    common practice)."""
+    det = profile.detector
+    return max(10.0, 5.0 * det.read_noise_e / det.gain_e_per_adu)
+
+
+@dataclass(frozen=True)
+class BiasCheck:
+    """Whether a master bias agrees with the frames it is to be subtracted from.
+
+    Attributes
+    ----------
+    ok : bool
+    offset_adu : float
+        Worst disagreement found (ADU): master bias minus the frame's own estimate.
+    tolerance_adu : float
+        See :func:`bias_tolerance_adu`.
+    reference : str
+        What the master was compared with: ``"overscan"`` or ``"frame level"``.
+    message : str
+        One line for the log and the summary ("" when ok).
+    """
+
+    ok: bool
+    offset_adu: float
+    tolerance_adu: float
+    reference: str
+    message: str = ""
+
+
+def check_master_bias(master: np.ndarray, frames: Sequence[str | Path],
+                      profile: InstrumentProfile) -> BiasCheck:
+    """Compare a master bias with the bias level of some frames it will be subtracted from.
+
+    With an overscan in the profile, the master is compared with each frame's overscan level
+    (the median over the illuminated region of ``(frame - master) - (frame - overscan)``).
+    Without one, with the frame's own level: the 1st percentile of the frame after subtracting
+    the master must not lie below zero by more than the tolerance (an arc or science frame's
+    darkest pixels sit at the bias level, noise aside). Unreadable frames are passed over.
+    """
+    det = profile.detector
+    tolerance = bias_tolerance_adu(profile)
+    reference = "overscan" if det.overscan is not None else "frame level"
+    worst = 0.0
+    for path in frames:
+        try:
+            with_master = read_frame(path, profile, bias=master).data / det.gain_e_per_adu
+            if det.overscan is not None:
+                own = read_frame(path, profile).data / det.gain_e_per_adu
+                offset = float(np.nanmedian(own - with_master))
+            else:
+                offset = -float(np.nanpercentile(with_master, 1.0))
+        except (WavecalError, ValueError):
+            continue
+        if abs(offset) > abs(worst):
+            worst = offset
+    if (worst > tolerance) if det.overscan is None else (abs(worst) > tolerance):
+        message = (f"master bias differs from the frames' {reference} by {worst:+.1f} ADU "
+                   f"(tolerance {tolerance:.1f} ADU): not used, the frames use "
+                   + ("their overscan" if det.overscan is not None
+                      else f"the profile's bias level {det.bias_adu:g} ADU"))
+        return BiasCheck(False, worst, tolerance, reference, message)
+    return BiasCheck(True, worst, tolerance, reference)

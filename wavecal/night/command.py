@@ -6,9 +6,7 @@ import sys
 from pathlib import Path
 
 from ..errors import WavecalError
-from ..profile import load_profile
-from .progress import Progress
-from .runner import run_night
+from ..validation import Integer, Real, option_type
 
 __all__ = ["add_night_arguments", "run_night_command"]
 
@@ -24,15 +22,15 @@ def add_night_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--policy", choices=("nearest", "interpolate"), default="nearest",
                         help="solution of a science frame: nearest arc in time, or interpolated "
                              "for drift between the bracketing arcs (default nearest)")
-    parser.add_argument("--drift-threshold", type=float, default=0.05, metavar="PX",
+    parser.add_argument("--drift-threshold", type=option_type(Real(low=0)), default=0.05, metavar="PX",
                         help="interpolate only when the bracketing arcs differ by more (px)")
-    parser.add_argument("--angle-tolerance", type=float, default=0.01, metavar="DEG",
+    parser.add_argument("--angle-tolerance", type=option_type(Real(low=0)), default=0.01, metavar="DEG",
                         help="grating angles closer than this form one configuration")
     parser.add_argument("--profile-keyword", default="INSTRUME",
                         help="header keyword naming the profile of each file (several profiles)")
     parser.add_argument("--group-by", action="append", default=[], metavar="KEYWORD",
                         help="further header keyword splitting configurations (repeatable)")
-    parser.add_argument("-j", "--workers", type=int, default=1, help="local worker processes")
+    parser.add_argument("-j", "--workers", type=option_type(Integer(low=1, high=256), int), default=1, help="local worker processes")
     parser.add_argument("--scheduler", default=None, metavar="ADDRESS",
                         help="run on a Dask distributed scheduler (tcp://host:port); needs the "
                              "optional dependency wavecal[dask]")
@@ -45,13 +43,17 @@ def add_night_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run_night_command(args: argparse.Namespace) -> int:
     """Run the night; exit code 0 all ok, 1 bad input, 3 something suspect, 4 something failed."""
+    from ..profile import load_profile
+    from .progress import Progress
+    from .runner import run_night
+
     try:
         profiles = {}
         for spec in args.profile:
             prof = load_profile(spec)
             profiles[prof.name] = prof
         result = run_night(Path(args.raw_dir), profiles, Path(args.out),
-                           recursive=args.recursive, workers=max(1, args.workers),
+                           recursive=args.recursive, workers=args.workers,
                            scheduler=args.scheduler, policy=args.policy,
                            drift_threshold_px=args.drift_threshold,
                            angle_tolerance_deg=args.angle_tolerance,

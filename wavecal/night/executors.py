@@ -1,13 +1,62 @@
 """Where the per-file tasks run: in this process, in local worker processes, or on an existing
-Dask distributed cluster (optional dependency, ``pip install "wavecal[dask]"``)."""
+Dask distributed cluster (optional dependency, ``pip install "wavecal[dask]"``).
+
+Local workers are safe to use from a plain script: they are started without re-running the
+caller's ``__main__`` module (the tasks are wavecal functions and need nothing from it), so a
+script calling :func:`~wavecal.night.run_night` with ``workers=2`` and no
+``if __name__ == "__main__":`` guard works. They also end by themselves, within
+:data:`PARENT_CHECK_S` seconds, when the process that started them dies, whatever killed it
+(``kill -9`` included): each watches its parent process id.
+"""
 from __future__ import annotations
 
+import contextlib
 import multiprocessing
+import os
+import sys
+import threading
+import time
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from typing import Any
 
-__all__ = ["TaskPool"]
+__all__ = ["TaskPool", "PARENT_CHECK_S"]
+
+#: Seconds between two checks, in each worker, that the parent process is still alive.
+PARENT_CHECK_S = 0.25
+
+
+def _watch_parent(parent_pid: int) -> None:
+    """Worker initializer: end this worker as soon as ``parent_pid`` is no longer its parent."""
+
+    def watch() -> None:
+        while os.getppid() == parent_pid:
+            time.sleep(PARENT_CHECK_S)
+        os._exit(1)  # the parent is gone: no one will collect the results
+
+    threading.Thread(target=watch, name="wavecal-parent-watch", daemon=True).start()
+
+
+@contextlib.contextmanager
+def _main_module_hidden() -> Iterator[None]:
+    """Start worker processes without making them import the caller's ``__main__`` module.
+
+    ``spawn`` workers run the parent's main script again (as ``__mp_main__``) unless it has
+    neither ``__spec__`` nor ``__file__``; both are hidden while the workers start, then put
+    back.
+    """
+    main = sys.modules.get("__main__")
+    saved = {name: main.__dict__[name] for name in ("__file__", "__spec__")
+             if main is not None and name in main.__dict__}
+    try:
+        if main is not None:
+            main.__dict__.pop("__file__", None)
+            if "__spec__" in saved:
+                main.__spec__ = None
+        yield
+    finally:
+        if main is not None:
+            main.__dict__.update(saved)
 
 
 def _serial(fn: Callable[..., dict], items: Sequence[dict]) -> Iterator[tuple[int, dict]]:
@@ -71,8 +120,11 @@ class TaskPool:
     def _processes(self, fn, items):
         if self._pool is None:
             ctx = multiprocessing.get_context("spawn")  # no fork of a threaded parent
-            self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx)
-        futures = {self._pool.submit(_call, fn, kw): i for i, kw in enumerate(items)}
+            self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx,
+                                             initializer=_watch_parent,
+                                             initargs=(os.getpid(),))
+        with _main_module_hidden():  # workers start at the first submissions
+            futures = {self._pool.submit(_call, fn, kw): i for i, kw in enumerate(items)}
         for fut in as_completed(futures):
             yield futures[fut], _outcome(fut, items[futures[fut]])
 

@@ -5,9 +5,11 @@ seconds before any heavy work starts.
 """
 from __future__ import annotations
 
+import errno
 import math
 import os
 import re
+import stat
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -22,7 +24,7 @@ from ..profile import InstrumentProfile
 from ..products import safe_stem
 
 __all__ = ["FITS_SUFFIXES", "KINDS", "FileRecord", "Inventory", "build_inventory", "classify",
-           "find_files"]
+           "find_files", "survey"]
 
 #: File-name endings taken as FITS files.
 FITS_SUFFIXES = (".fits", ".fit", ".fts", ".fits.gz", ".fits.fz", ".fz")
@@ -100,6 +102,8 @@ class Inventory:
     root: Path
     records: tuple[FileRecord, ...]
     profiles: Mapping[str, InstrumentProfile] = field(default_factory=dict)
+    #: Every other entry of the folder, with the reason it is not read (see :func:`survey`).
+    ignored: tuple[tuple[str, str], ...] = ()
 
     def of_kind(self, kind: str) -> tuple[FileRecord, ...]:
         """Usable records (no problem) of one kind."""
@@ -136,25 +140,94 @@ class Inventory:
         bad = [r for r in self.records if r.problem]
         if bad:
             lines.append(f"  {len(bad)} file(s) with problems")
+        if self.ignored:
+            lines.append(f"  {len(self.ignored)} other entr{'y' if len(self.ignored) == 1 else 'ies'}"
+                         " not read (listed in the summary)")
         return "\n".join(lines)
+
+
+def survey(root: str | Path, *, recursive: bool = False, exclude: Sequence[str | Path] = ()
+           ) -> tuple[list[Path], list[tuple[str, str]]]:
+    """Every entry of ``root``: the FITS files to read, and every other entry with the reason it
+    is not read (named pipe, socket, dangling or looping symbolic link, a folder named like a
+    FITS file, a sub-folder without ``recursive``, a hidden entry, another file name ...).
+
+    Nothing is opened: entries are told apart by ``stat`` alone (a named pipe is never read).
+
+    Returns
+    -------
+    files : list of Path
+        FITS files by name (symbolic links to files included), sorted by relative path.
+    ignored : list of (str, str)
+        Relative path (POSIX) and reason of every other entry, sorted.
+    """
+    root = Path(root)
+    skip = {Path(e).resolve() for e in exclude}
+    files: list[Path] = []
+    ignored: list[tuple[str, str]] = []
+
+    def visit(folder: Path) -> None:
+        try:
+            entries = sorted(os.scandir(folder), key=lambda e: e.name)
+        except OSError as exc:
+            ignored.append((folder.relative_to(root).as_posix(),
+                            f"folder cannot be listed ({exc.strerror}): not read"))
+            return
+        for entry in entries:
+            path = Path(entry.path)
+            reason = _why_not_read(entry, path, recursive, skip)
+            if reason is None:
+                files.append(path)
+            elif reason == "":
+                visit(path)
+            else:
+                ignored.append((path.relative_to(root).as_posix(), reason))
+
+    visit(root)
+    return (sorted(files, key=lambda p: p.relative_to(root).as_posix()), sorted(ignored))
+
+
+def _why_not_read(entry: os.DirEntry, path: Path, recursive: bool, skip: set[Path]
+                  ) -> str | None:
+    """None for a FITS file to read, "" for a folder to look into, else the reason."""
+    link = entry.is_symlink()
+    try:
+        st = os.stat(path)  # follows symbolic links
+    except OSError as exc:
+        if link and exc.errno == errno.ELOOP:
+            return "symbolic link loop: not read"
+        if link:
+            return "dangling symbolic link (its target does not exist): not read"
+        return f"cannot be examined ({exc.strerror}): not read"
+    hidden = entry.name.startswith(".")
+    if stat.S_ISDIR(st.st_mode):
+        if path.resolve() in skip:
+            return "the output folder: not read"
+        if link:
+            return "symbolic link to a folder: not followed"
+        if entry.name.lower().endswith(FITS_SUFFIXES):
+            return "a folder named like a FITS file: not read"
+        if hidden:
+            return "hidden folder: not read"
+        return "" if recursive else "sub-folder: not read (use --recursive)"
+    if not stat.S_ISREG(st.st_mode):
+        what = ("named pipe (FIFO)" if stat.S_ISFIFO(st.st_mode) else
+                "socket" if stat.S_ISSOCK(st.st_mode) else
+                "device file" if stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode) else
+                "not a regular file")
+        return f"{what}: not read"
+    if hidden:
+        return "hidden file: not read"
+    if not entry.name.lower().endswith(FITS_SUFFIXES):
+        return f"not a FITS file name ({' '.join(FITS_SUFFIXES)}): not read"
+    return None
 
 
 def find_files(root: str | Path, *, recursive: bool = False,
                exclude: Sequence[str | Path] = ()) -> list[Path]:
-    """FITS files (by name) in ``root``, sorted; ``exclude`` folders are skipped."""
-    root = Path(root)
-    skip = {Path(e).resolve() for e in exclude}
-    found = []
-    walker = os.walk(root) if recursive else [(str(root), [], os.listdir(root))]
-    for folder, dirs, files in walker:
-        dirs[:] = sorted(d for d in dirs if (Path(folder) / d).resolve() not in skip
-                         and not d.startswith("."))
-        for name in files:
-            if name.lower().endswith(FITS_SUFFIXES) and not name.startswith("."):
-                path = Path(folder) / name
-                if path.is_file():
-                    found.append(path)
-    return sorted(found, key=lambda p: p.relative_to(root).as_posix())
+    """FITS files (by name) in ``root``, sorted; ``exclude`` folders are skipped (see
+    :func:`survey` for the entries left out and why)."""
+    return survey(root, recursive=recursive, exclude=exclude)[0]
 
 
 def _words(value: object) -> set[str]:
@@ -371,7 +444,9 @@ def build_inventory(root: str | Path,
     if isinstance(profiles, InstrumentProfile):
         profiles = {profiles.name: profiles}
     profiles = dict(profiles)
+    found, ignored = survey(root, recursive=recursive, exclude=exclude)
     records = [_examine(p, root, profiles, profile_keyword, tuple(extra_keywords))
-               for p in find_files(root, recursive=recursive, exclude=exclude)]
+               for p in found]
     records = _unique_stems(_configurations(records, angle_tolerance_deg))
-    return Inventory(root=root, records=tuple(records), profiles=profiles)
+    return Inventory(root=root, records=tuple(records), profiles=profiles,
+                     ignored=tuple(ignored))

@@ -34,11 +34,19 @@ from ..profile import InstrumentProfile
 from ..report import write_night_report
 from ..solution import load_solution
 from .assign import POLICIES, ArcPoint, assign
-from .bias import combine_bias, write_master_bias
+from .bias import BiasCheck, check_master_bias, combine_bias, read_master_bias, write_master_bias
 from .drift import relative_shift
 from .executors import TaskPool
 from .inventory import FileRecord, Inventory, build_inventory
-from .tasks import arc_task, read_manifest, science_task, sha256_file, write_manifest
+from .tasks import (
+    arc_products,
+    arc_task,
+    read_manifest,
+    science_task,
+    sha256_file,
+    verify_products,
+    write_manifest,
+)
 
 __all__ = ["SUMMARY_COLUMNS", "NightResult", "run_night"]
 
@@ -100,12 +108,18 @@ def _file_key(rec: FileRecord) -> dict[str, Any]:
             "software": __version__}
 
 
-def _up_to_date(product: Path, manifest: Path, key: dict[str, Any], redo: bool
-                ) -> dict[str, Any] | None:
-    if redo or not product.is_file():
+def _up_to_date(products: tuple[Path, ...], manifest: Path, key: dict[str, Any], redo: bool,
+                log: _Log) -> dict[str, Any] | None:
+    """The recorded result when every product exists, its manifest matches ``key`` and its bytes
+    match the manifest's checksums; else None (remake it; a damaged product is logged)."""
+    if redo or not all(p.is_file() for p in products):
         return None
     found = read_manifest(manifest)
     if found is None or found.get("key") != key:
+        return None
+    damage = verify_products(found, products)
+    if damage:
+        log(f"remaking {products[0].name}: {damage}")
         return None
     return found.get("result")
 
@@ -132,7 +146,7 @@ def _master_biases(inv: Inventory, out: Path, redo: bool, log: _Log
         product = out / "calibrations" / f"master_bias_{i}.fits"
         manifest = out / "manifests" / f"master_bias_{i}.json"
         key = {"inputs": [_file_key(r) for r in recs], "software": __version__}
-        result = _up_to_date(product, manifest, key, redo)
+        result = _up_to_date((product,), manifest, key, redo, log)
         if result is None:
             try:
                 master, rejected = combine_bias([r.path for r in recs])
@@ -144,18 +158,36 @@ def _master_biases(inv: Inventory, out: Path, redo: bool, log: _Log
             write_master_bias(master, product, used)
             result = {"rejected": {Path(k).relative_to(inv.root).as_posix(): v
                                    for k, v in rejected.items()}}
-            write_manifest(manifest, key, result)
+            write_manifest(manifest, key, result, products=(product,))
             made += 1
             log(f"master bias {i} ({profile}, binning {binning}): {len(used)} frames combined")
-        masters[(profile, binning)] = product
+        check = _check_bias(inv, profile, binning, product)
+        if check.ok:
+            masters[(profile, binning)] = product
+            note = ""
+        else:
+            log(f"WARNING master bias {i} ({profile}, binning {binning}): {check.message}")
+            note = f"; WARNING: {check.message}"
         rejected = result.get("rejected", {})
         for r in recs:
             if r.name in rejected:
                 rows.append(_row(r, status="failed", reason=rejected[r.name]))
             else:
-                rows.append(_row(r, status="ok", reason=f"combined into {_rel(product, out)}",
+                rows.append(_row(r, status="ok" if check.ok else "suspect",
+                                 reason=f"combined into {_rel(product, out)}{note}",
                                  product=_rel(product, out), made=made > 0))
     return masters, rows, made
+
+
+def _check_bias(inv: Inventory, profile: str, binning: tuple[int, int], product: Path
+                ) -> BiasCheck:
+    """The master bias against up to three of the frames it is for (first, middle, last)."""
+    frames = sorted((r for kind in ("arc", "science") for r in inv.of_kind(kind)
+                     if r.profile == profile and r.binning == binning),
+                    key=lambda r: (r.time_mjd, r.name))
+    sample = [frames[k].path for k in sorted({0, len(frames) // 2, len(frames) - 1})] \
+        if frames else []
+    return check_master_bias(read_master_bias(product), sample, inv.profiles[profile])
 
 
 def _run(fn: Callable[..., dict], jobs: list[tuple[FileRecord, dict]], *, pool: TaskPool,
@@ -177,7 +209,7 @@ def _arcs(inv: Inventory, out: Path, masters: dict, redo: bool, pool: TaskPool,
         manifest = out / "manifests" / f"{r.stem}.arc.json"
         bias = masters.get((r.profile, r.binning))
         key = {**_file_key(r), "task": "arc", "bias": sha256_file(bias)}
-        result = _up_to_date(product, manifest, key, redo)
+        result = _up_to_date(arc_products(product), manifest, key, redo, log)
         if result is not None:
             outcome[r.name] = {**result, "made": False}
             continue
@@ -201,7 +233,16 @@ def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: floa
                       key=lambda r: (r.time_mjd, r.name))
         if not good:
             continue
-        sols = {r.name: load_solution(arcs[r.name]["product"]) for r in good}
+        sols = {}
+        for r in good:
+            try:
+                sols[r.name] = load_solution(arcs[r.name]["product"])
+            except WavecalError as exc:  # listed as failed; the night goes on
+                arcs[r.name].update(status="failed", reason=str(exc))
+                log(f"arc {r.name}: {exc}")
+        good = [r for r in good if r.name in sols]
+        if not good:
+            continue
         ref = sols[good[0].name]
         pts = [ArcPoint(r.name, r.time_mjd, relative_shift(sols[r.name], ref)) for r in good]
         for k, p in enumerate(pts):
@@ -331,7 +372,7 @@ def run_night(raw_dir: str | Path,
                    "solution": sha256_file(solution), "shift_px": round(choice.shift_px, 6)}
             base = {"solution_used": choice.label, "drift_px": choice.drift_px,
                     "product": _rel(product, out)}
-            result = _up_to_date(product, manifest, key, redo)
+            result = _up_to_date((product,), manifest, key, redo, log)
             if result is not None:
                 science_rows[r.name] = _row(r, status=result["status"], reason=result["reason"],
                                             rms_px=result.get("rms_px"), **base)
@@ -364,8 +405,10 @@ def run_night(raw_dir: str | Path,
             rows.append(_row(r, status="skipped",
                              reason=f"frame type {r.kind}: not processed"))
     order = {r.name: i for i, r in enumerate(inv.records)}
-    summary = pd.DataFrame(sorted(rows, key=lambda row: order[row["file"]]),
-                           columns=list(SUMMARY_COLUMNS))
+    rows = sorted(rows, key=lambda row: order[row["file"]])
+    rows += [{**_row(FileRecord(path=inv.root / name, name=name, stem="", kind="other")),
+              "status": "skipped", "reason": reason} for name, reason in inv.ignored]
+    summary = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
     summary["rms_px"] = pd.to_numeric(summary["rms_px"])
     atomic_write_text(out / "summary.csv", summary.to_csv(index=False))
     statuses = set(summary["status"])

@@ -1,8 +1,9 @@
 """The per-file work of a night (module-level functions, so worker processes can run them).
 
 Each task catches its own errors and returns a plain dict: one bad file never stops the night.
-Products are written atomically, then their manifest (what they were made from), so a product
-with a matching manifest is complete and up to date.
+Products are written atomically, then their manifest: what they were made from, and the SHA-256
+of each product file, so that a re-run keeps a product only when its manifest matches and its
+bytes are those written (:func:`verify_products`).
 """
 from __future__ import annotations
 
@@ -25,7 +26,9 @@ from ..solution import load_solution
 from .bias import read_master_bias
 from .drift import shifted_solution
 
-__all__ = ["sha256_file", "read_manifest", "write_manifest", "arc_task", "science_task"]
+__all__ = ["sha256_file", "read_manifest", "write_manifest", "verify_products", "arc_products",
+           "arc_task",
+           "science_task"]
 
 
 def sha256_file(path: str | Path | None) -> str:
@@ -43,10 +46,30 @@ def read_manifest(path: Path) -> dict[str, Any] | None:
         return None
 
 
-def write_manifest(path: Path, key: dict[str, Any], result: dict[str, Any]) -> None:
-    """Write a manifest (after its product): the inputs' ``key`` and the task's ``result``."""
-    atomic_write_text(path, json.dumps({"key": key, "result": result, "software": __version__},
+def write_manifest(path: Path, key: dict[str, Any], result: dict[str, Any],
+                   products: tuple[str | Path, ...] = ()) -> None:
+    """Write a manifest (after its products): the inputs' ``key``, the task's ``result`` and the
+    SHA-256 of each product file (by file name)."""
+    checksums = {Path(p).name: sha256_file(p) for p in products}
+    atomic_write_text(path, json.dumps({"key": key, "result": result, "software": __version__,
+                                        "checksums": checksums},
                                        indent=1, allow_nan=True) + "\n")
+
+
+def verify_products(manifest: dict[str, Any], products: tuple[str | Path, ...]) -> str:
+    """Why the ``products`` do not match their ``manifest``'s checksums ("" when they all do)."""
+    checksums = manifest.get("checksums")
+    if not isinstance(checksums, dict):
+        return "the manifest records no checksums"
+    for product in map(Path, products):
+        if product.name not in checksums:
+            return f"the manifest records no checksum of {product.name}"
+        try:
+            if sha256_file(product) != checksums[product.name]:
+                return f"{product.name} differs from what was written (checksum mismatch)"
+        except OSError as exc:
+            return f"{product.name} cannot be read ({exc.strerror})"
+    return ""
 
 
 def _failure(exc: BaseException) -> dict[str, Any]:
@@ -67,8 +90,13 @@ def arc_task(*, path: str, profile: InstrumentProfile, bias_path: str | None, pr
                   "rms_px": solution.rms_px, "product": product}
     except Exception as exc:  # every failure becomes a row of the summary
         return _failure(exc)
-    write_manifest(Path(manifest), key, result)
+    write_manifest(Path(manifest), key, result, products=arc_products(product))
     return result
+
+
+def arc_products(solution: str | Path) -> tuple[Path, Path]:
+    """Files an arc task writes: its solution and the extracted spectrum beside it."""
+    return Path(solution), spectrum_path(solution)
 
 
 def science_task(*, path: str, profile: InstrumentProfile, bias_path: str | None,
@@ -96,5 +124,5 @@ def science_task(*, path: str, profile: InstrumentProfile, bias_path: str | None
                   "rms_px": rms if math.isfinite(rms) else None, "product": product}
     except Exception as exc:  # every failure becomes a row of the summary
         return _failure(exc)
-    write_manifest(Path(manifest), key, result)
+    write_manifest(Path(manifest), key, result, products=(product,))
     return result

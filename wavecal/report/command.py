@@ -7,10 +7,6 @@ import sys
 from pathlib import Path
 
 from ..errors import WavecalError
-from ..solution import load_solution
-from .frame_report import write_frame_report
-from .night_report import write_night_report
-from .spectrum_file import load_spectrum, spectrum_path
 
 __all__ = ["add_report_arguments", "run_report_command"]
 
@@ -28,6 +24,11 @@ def add_report_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run_report_command(args: argparse.Namespace) -> int:
     """Write the reports; exit code 0 written, 1 bad input."""
+    from ..solution import load_solution
+    from .frame_report import write_frame_report
+    from .night_report import write_night_report
+    from .spectrum_file import load_spectrum, spectrum_path
+
     try:
         for src in map(Path, args.source):
             if src.is_dir():
