@@ -4,9 +4,12 @@ Steps of :func:`find_peaks`:
 
 0. **Spikes.** One- and two-pixel spikes much sharper than any line (cosmic-ray residue, hot
    pixels) are masked like bad pixels.
-1. **Line width.** Unless given, the typical FWHM is first estimated from the half-maximum
-   widths of the brightest isolated maxima; after the fits it is the median fitted FWHM of
-   isolated, unsaturated lines (everything is redone once if that differs by more than 25 %).
+1. **Line width.** Unless given, a starting FWHM is estimated from the half-maximum widths of
+   the brightest isolated maxima. The lines are then detected and fitted once with it, and the
+   widths of all well-measured lines give the **width model**: a robust low-order polynomial of
+   ``ln FWHM`` in position (:mod:`wavecal._line_widths`), the expected FWHM at every pixel
+   (:meth:`PeakTable.fwhm_at`, column ``fwhm_expected``). Everything below is redone with it,
+   and once more if it then moves by more than 5 % at some line.
 2. **Continuum.** A running median over ten FWHM (at least 31 pixels) of the pixels that are
    not part of a line (pixels 3 sigma above the current estimate, grown by one FWHM, are left
    out), iterated three times and smoothed with a running mean. This removes scattered light
@@ -20,18 +23,29 @@ Steps of :func:`find_peaks`:
    re-evaluated on the fitted model at every iteration, ``max(model + continuum, 0) +
    (variance - max(flux, 0))`` (Poisson plus the read-noise part of the given variance); at
    convergence this is the Poisson maximum-likelihood estimate, whose scatter reaches the
-   Cramér–Rao bound (Winick 1986, J. Opt. Soc. Am. A 3, 1809). Lines closer than
-   ``blend_separation`` FWHM are fitted jointly with a shared width and flagged BLENDED. All fits
-   of a given number of lines are solved at once by a vectorised Levenberg–Marquardt iteration;
-   the wings of neighbouring lines outside a fit are subtracted using their current estimates,
-   and the whole pass is repeated once with the updated neighbours.
-5. **Second look.** The matched filter is run again on the residual of the fits (allowing 3 %
-   of the fitted profile as model error); lines it finds more than one FWHM from every fitted
-   line (typically faint lines in the wings of bright ones) are added and everything is fitted
-   again.
+   Cramér–Rao bound (Winick 1986, J. Opt. Soc. Am. A 3, 1809). Every line has its own width,
+   bounded within a factor 2 of the expected FWHM at its position, and a non-negative flux.
+   Lines closer than ``blend_separation`` expected FWHM are fitted jointly and flagged
+   BLENDED; a longer group is cut into chunks of at most three lines, each fitted with one
+   more line of the group on each side (overlap), the lines beyond held as fixed
+   contributions updated between two passes (:mod:`wavecal._line_fit`).
+5. **Saturated lines.** Saturated pixels and their neighbours are left out of the fit, so the
+   centre comes from the unsaturated wings; the width has a Gaussian prior at the expected
+   FWHM with the scatter of widths about the width model, and ``x_err`` is that fit's own.
+6. **Second look.** The matched filter is run again on the residual of the fits (allowing 3 %
+   of the fitted profile as model error); lines it finds more than one expected FWHM from
+   every fitted line (typically faint lines in the wings of bright ones) are added and
+   everything is fitted again.
+7. **Satellites.** A line whose peak does not stand out above the fitted profiles of the
+   brighter lines around it (a shoulder on their wings), or whose flux went to zero, is
+   dropped and the rest fitted again.
 
 Uncertainties come from the inverse of the weighted normal matrix at the solution, i.e. from
 the noise model alone (not rescaled by the reduced chi-square, which is reported separately).
+A line significantly wider than expected (ODD_WIDTH, or 3 sigma wider counting the spread of
+widths about the model) keeps its place in the table, and its ``x_err`` includes the possible
+offset of a blend's centroid from its brighter component: a caller down-weights it through
+``x_err``; no line is excluded here for its width alone.
 """
 from __future__ import annotations
 
@@ -59,6 +73,10 @@ _DEFAULT_FWHM = 3.0
 #: A line is of ODD_WIDTH when its FWHM differs from the expected one by more than this factor
 #: (two equal lines 0.64 FWHM apart make one line 1.25 times as wide: sqrt(1 + d²/4σ²)).
 _ODD_WIDTH_RATIO = 1.25
+#: A line wider than expected by this many standard deviations (its width error and the spread
+#: of widths about the model) gets the possible offset of a blend in its ``x_err`` (3 sigma:
+#: about 1 in 700 single lines by chance).
+_BLEND_EVIDENCE = 3.0
 #: Each fitted width is bounded within this factor of the expected FWHM: two equal lines 1.5
 #: FWHM apart, about as close as the matched filter still sees as one, make one line twice as
 #: wide; no real line is narrower than half the instrumental profile.
@@ -106,10 +124,10 @@ class PeakFlag(enum.IntFlag):
     #: than an expected FWHM from the detection.
     POOR_FIT = 8
     #: FWHM significantly (5 sigma) and strongly (by more than a factor 1.25) unlike the FWHM
-    #: expected at its position (``fwhm_expected``, from the width model). A wider line may be
-    #: an unresolved blend: its ``x_err`` includes the possible offset of the blend's centroid
-    #: from its brighter component. Such a line is to be down-weighted through its ``x_err``,
-    #: never excluded for its width alone.
+    #: expected at its position (``fwhm_expected``, from the width model; the ratio is
+    #: ``fwhm / fwhm_expected``). A wider line may be an unresolved blend: its ``x_err``
+    #: includes the possible offset of the blend's centroid from its brighter component. Such
+    #: a line is to be down-weighted through its ``x_err``, never excluded for its width alone.
     ODD_WIDTH = 16
 
 
@@ -734,9 +752,14 @@ def _table(data: _Data, res: _Result, widths: WidthModel, margin: float, x_offse
     odd &= ~res.saturated
     flags |= np.where(odd, int(PeakFlag.ODD_WIDTH), 0)
     # A line wider than expected may be two: the centroid of a blend lies at most
-    # sqrt(sigma_obs² - sigma_expected²) from its brighter component.
+    # sqrt(sigma_obs² - sigma_expected²) from its brighter component. That is added to x_err
+    # whenever the line is wider than expected beyond the chance of its measurement error and
+    # the spread of single lines' widths about the model (_BLEND_EVIDENCE sigma), or ODD_WIDTH.
     excess = np.maximum(st.sigma ** 2 - (expected / FWHM_PER_SIGMA) ** 2, 0.0)
-    x_err = np.where(odd, np.sqrt(st.x_err ** 2 + excess), st.x_err)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = log_ratio / np.sqrt((fwhm_err / fwhm) ** 2 + widths.scatter ** 2)
+    wide = ((z > _BLEND_EVIDENCE) | odd) & ~res.saturated
+    x_err = np.where(wide, np.sqrt(st.x_err ** 2 + excess), st.x_err)
     # A saturated line whose wings could not be fitted: centre of the saturated run.
     fallback = res.saturated & ~np.isfinite(x_err)
     x_err = np.where(fallback, np.maximum(expected, 1.0) / math.sqrt(12.0), x_err)
