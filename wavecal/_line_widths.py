@@ -19,9 +19,9 @@ __all__ = ["WidthModel", "MAX_DEGREE", "LINES_PER_COEFFICIENT", "fit_width_model
 #: Highest polynomial degree of ``ln FWHM`` in position: defocus across a flat detector from a
 #: curved focal surface is quadratic in position (common practice), a tilted one linear.
 MAX_DEGREE = 2
-#: Lines needed per polynomial coefficient: a robust (clipped) fit needs several points per
-#: free parameter to tell an outlier from the trend (common practice: ≥ 5).
-LINES_PER_COEFFICIENT = 5
+#: Lines needed per polynomial coefficient: with three, every residual keeps at least two
+#: thirds of a degree of freedom, enough for the clipping to tell an outlier from the trend.
+LINES_PER_COEFFICIENT = 3
 #: Clipping threshold, in robust standard deviations of ``ln FWHM`` (common practice).
 _CLIP_SIGMA = 3.0
 #: Smallest scatter of ``ln FWHM``: no width is known better than 0.1 %.
@@ -87,8 +87,7 @@ def fit_width_model(x: np.ndarray, fwhm: np.ndarray, fwhm_err: np.ndarray, n_pix
     residuals *below* the fit (1.4826 times their median absolute value), and residuals beyond
     :data:`_CLIP_SIGMA` ``s`` on either side are clipped with :func:`astropy.stats.sigma_clip`
     (the window stays symmetric about the fit, which then settles on the mode of the widths
-    rather than drifting down). The first window is centred on the median width with the
-    median absolute deviation of all widths as scale. The fit (weights ``1 / (err² + s²)``, ``err`` the
+    rather than drifting down). The fit (weights ``1 / (err² + s²)``, ``err`` the
     measurement error of ``ln FWHM``) is repeated until the clipped set no longer changes. The
     degree is the highest (up to :data:`MAX_DEGREE`) with :data:`LINES_PER_COEFFICIENT` lines
     per coefficient; with no line, ``fallback``.
@@ -106,10 +105,8 @@ def fit_width_model(x: np.ndarray, fwhm: np.ndarray, fwhm_err: np.ndarray, n_pix
     lo, hi = float(x.min()), float(x.max())
     centre, half = 0.5 * (lo + hi), max(0.5 * (hi - lo), 1.0)
     u = (x - centre) / half
-    # robust start: a constant at the median width, clipped by the MAD of all widths
-    resid = y - np.median(y)
-    scatter = max(float(1.4826 * np.median(np.abs(resid))), _MIN_SCATTER) if n >= 3 else _DEFAULT_SCATTER
-    keep = np.abs(resid) <= _CLIP_SIGMA * scatter
+    keep = np.ones(n, bool)
+    scatter = _DEFAULT_SCATTER
     for _ in range(_MAX_ITER):
         w = 1.0 / (err[keep] ** 2 + scatter ** 2)
         coef = np.polynomial.polynomial.polyfit(u[keep], y[keep], degree, w=np.sqrt(w))

@@ -9,7 +9,7 @@ Steps of :func:`find_peaks`:
    widths of all well-measured lines give the **width model**: a robust low-order polynomial of
    ``ln FWHM`` in position (:mod:`wavecal._line_widths`), the expected FWHM at every pixel
    (:meth:`PeakTable.fwhm_at`, column ``fwhm_expected``). Everything below is redone with it,
-   and once more if it then moves by more than 5 % at some line.
+   and once more if it then moves at some line by more than the spread of widths about it.
 2. **Continuum.** A running median over ten FWHM (at least 31 pixels) of the pixels that are
    not part of a line (pixels 3 sigma above the current estimate, grown by one FWHM, are left
    out), iterated three times and smoothed with a running mean. This removes scattered light
@@ -42,10 +42,9 @@ Steps of :func:`find_peaks`:
 
 Uncertainties come from the inverse of the weighted normal matrix at the solution, i.e. from
 the noise model alone (not rescaled by the reduced chi-square, which is reported separately).
-A line significantly wider than expected (ODD_WIDTH, or 3 sigma wider counting the spread of
-widths about the model) keeps its place in the table, and its ``x_err`` includes the possible
-offset of a blend's centroid from its brighter component: a caller down-weights it through
-``x_err``; no line is excluded here for its width alone.
+A line of ODD_WIDTH keeps its place in the table; when it is wider than expected, its ``x_err``
+includes the possible offset of a blend's centroid from its brighter component, so a caller
+down-weights it through ``x_err``: no line is excluded here for its width alone.
 """
 from __future__ import annotations
 
@@ -73,10 +72,6 @@ _DEFAULT_FWHM = 3.0
 #: A line is of ODD_WIDTH when its FWHM differs from the expected one by more than this factor
 #: (two equal lines 0.64 FWHM apart make one line 1.25 times as wide: sqrt(1 + d²/4σ²)).
 _ODD_WIDTH_RATIO = 1.25
-#: A line wider than expected by this many standard deviations (its width error and the spread
-#: of widths about the model) gets the possible offset of a blend in its ``x_err`` (3 sigma:
-#: about 1 in 700 single lines by chance).
-_BLEND_EVIDENCE = 3.0
 #: Each fitted width is bounded within this factor of the expected FWHM: two equal lines 1.5
 #: FWHM apart, about as close as the matched filter still sees as one, make one line twice as
 #: wide; no real line is narrower than half the instrumental profile.
@@ -88,8 +83,6 @@ _START_SPAN = 3.0
 _WIDTH_SNR = 10.0
 #: Most measurements with an updated width model (after a first fit with the starting width).
 _MAX_ROUNDS = 2
-#: Another round is made while the width model moves by more than this factor at some line.
-_WIDTH_CONVERGED = 1.05
 #: Largest number of lines a chunk of a crowded group keeps (it is fitted with one more line of
 #: the group on each side, so at most five lines are fitted jointly).
 _MAX_CHUNK = 3
@@ -256,14 +249,15 @@ def find_peaks(spectrum: Spectrum, *, min_snr: float = 5.0, fwhm_guess: float | 
         data = _Data(flux, variance, usable & ~spikes, saturated)
     widths = WidthModel.constant(fwhm, data.n)
     # a first fit of the detected lines measures the width model; then everything is measured
-    # with it, again while the model moves by more than _WIDTH_CONVERGED at some line
+    # with it, again while the model moves at some line by more than the spread of widths
+    # about it (the width prior of saturated lines must come from the final model)
     result = _measure(data, widths, min_snr, blend_separation, full=False)
     for attempt in range(_MAX_ROUNDS + 1):
         new = _width_model(result, widths, data.n)
         at = result.st.x0[np.isfinite(result.st.x0)]
         moved = float(np.max(np.abs(np.log(new(at) / widths(at))))) if at.size else 0.0
         widths = new
-        if attempt == _MAX_ROUNDS or (attempt > 0 and moved < math.log(_WIDTH_CONVERGED)):
+        if attempt == _MAX_ROUNDS or (attempt > 0 and moved < widths.scatter):
             break
         result = _measure(data, widths, min_snr, blend_separation, full=True)
     margin = 2.0 * widths.median(data.n) if edge_margin is None else float(edge_margin)
@@ -751,15 +745,10 @@ def _table(data: _Data, res: _Result, widths: WidthModel, margin: float, x_offse
     odd = (np.abs(log_ratio) > math.log(_ODD_WIDTH_RATIO)) & (np.abs(fwhm - expected) > 5.0 * fwhm_err)
     odd &= ~res.saturated
     flags |= np.where(odd, int(PeakFlag.ODD_WIDTH), 0)
-    # A line wider than expected may be two: the centroid of a blend lies at most
-    # sqrt(sigma_obs² - sigma_expected²) from its brighter component. That is added to x_err
-    # whenever the line is wider than expected beyond the chance of its measurement error and
-    # the spread of single lines' widths about the model (_BLEND_EVIDENCE sigma), or ODD_WIDTH.
+    # A line of ODD_WIDTH wider than expected may be two: the centroid of a blend lies at most
+    # sqrt(sigma_obs² - sigma_expected²) from its brighter component; that goes into its x_err.
     excess = np.maximum(st.sigma ** 2 - (expected / FWHM_PER_SIGMA) ** 2, 0.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        z = log_ratio / np.sqrt((fwhm_err / fwhm) ** 2 + widths.scatter ** 2)
-    wide = ((z > _BLEND_EVIDENCE) | odd) & ~res.saturated
-    x_err = np.where(wide, np.sqrt(st.x_err ** 2 + excess), st.x_err)
+    x_err = np.where(odd, np.sqrt(st.x_err ** 2 + excess), st.x_err)
     # A saturated line whose wings could not be fitted: centre of the saturated run.
     fallback = res.saturated & ~np.isfinite(x_err)
     x_err = np.where(fallback, np.maximum(expected, 1.0) / math.sqrt(12.0), x_err)
