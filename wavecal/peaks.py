@@ -4,9 +4,12 @@ Steps of :func:`find_peaks`:
 
 0. **Spikes.** One- and two-pixel spikes much sharper than any line (cosmic-ray residue, hot
    pixels) are masked like bad pixels.
-1. **Line width.** Unless given, the typical FWHM is first estimated from the half-maximum
-   widths of the brightest isolated maxima; after the fits it is the median fitted FWHM of
-   isolated, unsaturated lines (everything is redone once if that differs by more than 25 %).
+1. **Line width.** Unless given, a starting FWHM is estimated from the half-maximum widths of
+   the brightest isolated maxima. The lines are then detected and fitted once with it, and the
+   widths of all well-measured lines give the **width model**: a robust low-order polynomial of
+   ``ln FWHM`` in position (:mod:`wavecal._line_widths`), the expected FWHM at every pixel
+   (:meth:`PeakTable.fwhm_at`, column ``fwhm_expected``). Everything below is redone with it,
+   and once more if it then moves at some line by more than the spread of widths about it.
 2. **Continuum.** A running median over ten FWHM (at least 31 pixels) of the pixels that are
    not part of a line (pixels 3 sigma above the current estimate, grown by one FWHM, are left
    out), iterated three times and smoothed with a running mean. This removes scattered light
@@ -20,18 +23,28 @@ Steps of :func:`find_peaks`:
    re-evaluated on the fitted model at every iteration, ``max(model + continuum, 0) +
    (variance - max(flux, 0))`` (Poisson plus the read-noise part of the given variance); at
    convergence this is the Poisson maximum-likelihood estimate, whose scatter reaches the
-   Cramér–Rao bound (Winick 1986, J. Opt. Soc. Am. A 3, 1809). Lines closer than
-   ``blend_separation`` FWHM are fitted jointly with a shared width and flagged BLENDED. All fits
-   of a given number of lines are solved at once by a vectorised Levenberg–Marquardt iteration;
-   the wings of neighbouring lines outside a fit are subtracted using their current estimates,
-   and the whole pass is repeated once with the updated neighbours.
-5. **Second look.** The matched filter is run again on the residual of the fits (allowing 3 %
-   of the fitted profile as model error); lines it finds more than one FWHM from every fitted
-   line (typically faint lines in the wings of bright ones) are added and everything is fitted
-   again.
+   Cramér–Rao bound (Winick 1986, J. Opt. Soc. Am. A 3, 1809). Every line has its own width,
+   bounded within a factor 2 of the expected FWHM at its position, and a non-negative flux.
+   Lines closer than ``blend_separation`` expected FWHM are fitted jointly and flagged
+   BLENDED; a longer group is cut into chunks of at most three lines, each fitted with one
+   more line of the group on each side (overlap), the lines beyond held as fixed
+   contributions updated between two passes (:mod:`wavecal._line_fit`).
+5. **Saturated lines.** Saturated pixels and their neighbours are left out of the fit, so the
+   centre comes from the unsaturated wings; the width has a Gaussian prior at the expected
+   FWHM with the scatter of widths about the width model, and ``x_err`` is that fit's own.
+6. **Second look.** The matched filter is run again on the residual of the fits (allowing 3 %
+   of the fitted profile as model error); lines it finds more than one expected FWHM from
+   every fitted line (typically faint lines in the wings of bright ones) are added and
+   everything is fitted again.
+7. **Satellites.** A line whose peak does not stand out above the fitted profiles of the
+   brighter lines around it (a shoulder on their wings), or whose flux went to zero, is
+   dropped and the rest fitted again.
 
 Uncertainties come from the inverse of the weighted normal matrix at the solution, i.e. from
 the noise model alone (not rescaled by the reduced chi-square, which is reported separately).
+A line of ODD_WIDTH keeps its place in the table; when it is wider than expected, its ``x_err``
+includes the possible offset of a blend's centroid from its brighter component, so a caller
+down-weights it through ``x_err``: no line is excluded here for its width alone.
 """
 from __future__ import annotations
 
@@ -44,9 +57,11 @@ import pandas as pd
 from scipy.ndimage import maximum_filter1d, median_filter, percentile_filter, uniform_filter1d
 from scipy.special import ndtr
 
+from ._line_fit import FitData, FitState, fit_units, profile
+from ._line_widths import LINES_PER_COEFFICIENT, WidthModel, fit_width_model
 from .extract import Spectrum
 
-__all__ = ["PeakFlag", "PeakTable", "describe_flags", "find_peaks", "COLUMNS"]
+__all__ = ["PeakFlag", "PeakTable", "WidthModel", "describe_flags", "find_peaks", "COLUMNS"]
 
 #: FWHM of a Gaussian in units of its standard deviation.
 FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
@@ -54,32 +69,58 @@ _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 #: Starting FWHM (pixels) when no line is bright enough to measure one (common practice:
 #: spectrographs sample the line width with 2-4 pixels).
 _DEFAULT_FWHM = 3.0
-#: A line is of ODD_WIDTH when its FWHM differs from the expected one by more than this factor.
+#: A line is of ODD_WIDTH when its FWHM differs from the expected one by more than this factor
+#: (two equal lines 0.64 FWHM apart make one line 1.25 times as wide: sqrt(1 + d²/4σ²)).
 _ODD_WIDTH_RATIO = 1.25
+#: Each fitted width is bounded within this factor of the expected FWHM: two equal lines 1.5
+#: FWHM apart, about as close as the matched filter still sees as one, make one line twice as
+#: wide; no real line is narrower than half the instrumental profile.
+_WIDTH_SPAN = 2.0
+#: The same while the expected FWHM is only a starting value (a guess or half-maximum estimate).
+_START_SPAN = 3.0
+#: Flux signal-to-noise ratio a line needs for its width to enter the width model (its width is
+#: then measured to about 15 %: relative width error ~ sqrt(2) / (S/N), common practice).
+_WIDTH_SNR = 10.0
+#: Most measurements with an updated width model (after a first fit with the starting width).
+_MAX_ROUNDS = 2
+#: Largest number of lines a chunk of a crowded group keeps (it is fitted with one more line of
+#: the group on each side, so at most five lines are fitted jointly).
+_MAX_CHUNK = 3
+#: Fit passes (the lines outside a chunk are updated between passes).
+_PASSES = 2
+#: Pixels fitted beyond the outermost centres of a chunk, in expected FWHM (±2.5 FWHM holds all
+#: but 4e-9 of a Gaussian's flux).
+_FIT_HALF_WIDTH = 2.5
+#: Brighter lines on each side whose wings are considered in the satellite test.
+_NEIGHBOUR_LINES = 3
 #: Fraction of the fitted line profile allowed as model error when looking for lines hidden in
 #: the residual of the fit (real line profiles are not exactly Gaussian).
 _PROFILE_TOLERANCE = 0.03
 
 #: Columns of :attr:`PeakTable.table`.
 COLUMNS = ("x", "x_err", "fwhm", "fwhm_err", "flux", "flux_err", "amplitude", "background", "snr",
-           "redchi", "flags")
+           "redchi", "flags", "fwhm_expected")
 
 
 class PeakFlag(enum.IntFlag):
     """Quality bits of a fitted line (column ``flags``; 0 means none)."""
 
-    #: A pixel within one FWHM of the centre is saturated; the centre comes from the wings, its
-    #: width is fixed at the typical FWHM and its uncertainty is doubled.
+    #: A pixel within one expected FWHM of the centre is saturated; the centre comes from a fit
+    #: of the unsaturated wings (saturated pixels and their neighbours left out), the width from
+    #: a prior at the expected FWHM, and ``x_err`` from that fit.
     SATURATED = 1
-    #: Fitted jointly with a line closer than ``blend_separation`` FWHM.
+    #: Fitted jointly with a line closer than ``blend_separation`` expected FWHM.
     BLENDED = 2
     #: Within ``edge_margin`` of an end of the spectrum or of a bad pixel.
     EDGE = 4
     #: The fit failed, did not converge, gave a non-positive flux or moved the centre by more
-    #: than a FWHM from the detection.
+    #: than an expected FWHM from the detection.
     POOR_FIT = 8
-    #: FWHM significantly (5 sigma) and strongly (by more than 25 %) unlike the FWHM expected at
-    #: its position (a quadratic in position through the isolated lines).
+    #: FWHM significantly (5 sigma) and strongly (by more than a factor 1.25) unlike the FWHM
+    #: expected at its position (``fwhm_expected``, from the width model; the ratio is
+    #: ``fwhm / fwhm_expected``). A wider line may be an unresolved blend: its ``x_err``
+    #: includes the possible offset of the blend's centroid from its brighter component. Such
+    #: a line is to be down-weighted through its ``x_err``, never excluded for its width alone.
     ODD_WIDTH = 16
 
 
@@ -102,17 +143,24 @@ class PeakTable:
     table : pandas.DataFrame
         One row per line, sorted by ``x``, with columns :data:`COLUMNS`: ``x`` (centre, raw
         pixel coordinate of the spectrum), ``x_err`` (1-sigma), ``fwhm`` and ``fwhm_err``
-        (pixels; ``fwhm_err`` is NaN when the width was fixed), ``flux`` and ``flux_err``
-        (electrons), ``amplitude`` (peak of the Gaussian, electrons per pixel), ``background``
-        (continuum plus local background under the line, electrons per pixel), ``snr``
-        (``flux / flux_err``), ``redchi`` (reduced chi-square of the fit) and ``flags`` (a
-        :class:`PeakFlag` bit mask).
+        (pixels; ``fwhm_err`` is NaN when the width was not measured, as for saturated lines),
+        ``flux`` and ``flux_err`` (electrons), ``amplitude`` (peak of the Gaussian, electrons per
+        pixel), ``background`` (continuum plus local background under the line, electrons per
+        pixel), ``snr`` (``flux / flux_err``; NaN when that is not finite), ``redchi`` (reduced
+        chi-square of the fit), ``flags`` (a :class:`PeakFlag` bit mask) and ``fwhm_expected``
+        (the width model's FWHM at ``x``, pixels).
     fwhm_typical : float
-        Typical FWHM of the lines in pixels (NaN if it could not be measured).
+        Typical FWHM of the lines in pixels: the median of the width model over the spectrum.
+    width_model : WidthModel, optional
+        Expected FWHM along the spectrum (in index units of the spectrum; use :meth:`fwhm_at`).
+    x_offset : float
+        Coordinate ``x`` of the spectrum's first pixel.
     """
 
     table: pd.DataFrame
     fwhm_typical: float
+    width_model: WidthModel | None = None
+    x_offset: float = 0.0
 
     def __len__(self) -> int:
         return len(self.table)
@@ -120,6 +168,23 @@ class PeakTable:
     def good(self) -> pd.DataFrame:
         """Rows with no flag set."""
         return self.table[self.table["flags"] == 0]
+
+    def fwhm_at(self, x: np.ndarray | float) -> np.ndarray:
+        """Expected FWHM (pixels) at positions ``x`` (coordinates of the spectrum).
+
+        The width model is clamped at the ends of the range of the lines it was fitted to;
+        without a width model, :attr:`fwhm_typical` everywhere.
+        """
+        x = np.asarray(x, dtype=np.float64)
+        if self.width_model is None:
+            return np.full(x.shape, self.fwhm_typical)
+        return self.width_model(x - self.x_offset)
+
+    def by_strength(self) -> pd.DataFrame:
+        """The rows ordered by decreasing ``snr``; a row whose ``snr`` is not finite comes last."""
+        snr = self.table["snr"].to_numpy(np.float64)
+        key = np.where(np.isfinite(snr), -snr, np.inf)
+        return self.table.iloc[np.argsort(key, kind="stable")]
 
     def to_table(self) -> pd.DataFrame:
         """A copy of the table with an extra ``flag_names`` column."""
@@ -174,7 +239,7 @@ def find_peaks(spectrum: Spectrum, *, min_snr: float = 5.0, fwhm_guess: float | 
     usable = np.isfinite(flux) & np.isfinite(variance) & (variance > 0) & ~np.asarray(spectrum.bad, bool)
     saturated = np.asarray(spectrum.saturated, bool) & np.isfinite(flux)
     if not usable.any():
-        return _empty(math.nan)
+        return PeakTable(table=_empty_frame(), fwhm_typical=math.nan, x_offset=float(x[0]))
     data = _Data(flux, variance, usable, saturated)
     fwhm = float(fwhm_guess) if fwhm_guess is not None else _initial_fwhm(data, min_snr)
     if not np.isfinite(fwhm):
@@ -182,15 +247,21 @@ def find_peaks(spectrum: Spectrum, *, min_snr: float = 5.0, fwhm_guess: float | 
     spikes = _spikes(data, fwhm)
     if spikes.any():
         data = _Data(flux, variance, usable & ~spikes, saturated)
-    for attempt in range(2):
-        result = _measure(data, fwhm, min_snr, blend_separation)
-        typical = _typical_fwhm(result, fwhm, min_snr)
-        if attempt == 0 and abs(typical / fwhm - 1.0) > 0.25:
-            fwhm = typical
-            continue
-        break
-    margin = 2.0 * typical if edge_margin is None else float(edge_margin)
-    return _table(data, result, typical, margin, x[0])
+    widths = WidthModel.constant(fwhm, data.n)
+    # a first fit of the detected lines measures the width model; then everything is measured
+    # with it, again while the model moves at some line by more than the spread of widths
+    # about it (the width prior of saturated lines must come from the final model)
+    result = _measure(data, widths, min_snr, blend_separation, full=False)
+    for attempt in range(_MAX_ROUNDS + 1):
+        new = _width_model(result, widths, data.n)
+        at = result.st.x0[np.isfinite(result.st.x0)]
+        moved = float(np.max(np.abs(np.log(new(at) / widths(at))))) if at.size else 0.0
+        widths = new
+        if attempt == _MAX_ROUNDS or (attempt > 0 and moved < widths.scatter):
+            break
+        result = _measure(data, widths, min_snr, blend_separation, full=True)
+    margin = 2.0 * widths.median(data.n) if edge_margin is None else float(edge_margin)
+    return _table(data, result, widths, margin, x[0])
 
 
 # ------------------------------------------------------------------------------------------------
@@ -392,88 +463,174 @@ def _detect(data: _Data, residual: np.ndarray, fwhm: float, min_snr: float, use:
 
 
 # ------------------------------------------------------------------------------------------------
-# Batched Levenberg–Marquardt fit of groups of lines
+# Fitting all lines: groups, chunks, passes, satellites
 # ------------------------------------------------------------------------------------------------
 
 @dataclass
 class _Result:
-    """Per-line fit results (index units)."""
+    """Per-line fit results (index units) and what they were fitted with."""
 
-    x0: np.ndarray
+    st: FitState
     x_init: np.ndarray
-    flux: np.ndarray
-    sigma: np.ndarray
-    background: np.ndarray
-    x_err: np.ndarray
-    flux_err: np.ndarray
-    sigma_err: np.ndarray
-    redchi: np.ndarray
-    ok: np.ndarray
     group_size: np.ndarray
     saturated: np.ndarray
+    expected: np.ndarray
     continuum: np.ndarray
+    #: Candidates dropped as wing satellites or for zero flux.
+    n_dropped: int = 0
 
 
-def _measure(data: _Data, fwhm: float, min_snr: float, blend_separation: float) -> _Result:
-    """Continuum, detection and fit; then a second detection on the residual of the fit.
+def _measure(data: _Data, widths: WidthModel, min_snr: float, blend_separation: float, *,
+             full: bool) -> _Result:
+    """Continuum, detection and fit; when ``full``, a second detection on the residual of the
+    fit, and a last fit without wing satellites.
 
     The second look finds lines hidden in the wings of brighter ones; when it finds any
-    farther than one FWHM from every fitted line, all lines are fitted again together.
+    farther than one expected FWHM from every fitted line, all lines are fitted again together.
+    Then wing satellites (:func:`_satellites`) and candidates
+    fitted with zero flux (no line) are dropped, and the rest fitted once more.
     """
-    base = _continuum(data, fwhm)
-    pos, amp = _detect(data, data.flux - base, fwhm, min_snr, data.usable | data.saturated)
-    res = _fit_lines(data, base, pos, amp, pos, fwhm, min_snr, blend_separation)
-    if pos.size == 0:
+    typical = widths.median(data.n)
+    base = _continuum(data, typical)
+    pos, amp = _detect(data, data.flux - base, typical, min_snr, data.usable | data.saturated)
+    res = _fit_lines(data, base, pos, amp, pos, widths, blend_separation)
+    if not full or pos.size == 0:
         return res
-    model = _line_model(res, data.n, fwhm)
+    st = res.st
+    model = _line_model(res)
     allowance = data.variance + (_PROFILE_TOLERANCE * model) ** 2
-    new, new_amp = _detect(data, data.flux - base - model, fwhm, min_snr, data.fit_ok, variance=allowance)
+    new, new_amp = _detect(data, data.flux - base - model, typical, min_snr, data.fit_ok, variance=allowance)
     if new.size:
-        nearest = np.min(np.abs(new[:, None] - res.x0[None, :]), axis=1)
-        keep = nearest > fwhm
+        nearest = np.min(np.abs(new[:, None] - st.x0[None, :]), axis=1)
+        keep = nearest > widths(new)
         new, new_amp = new[keep], new_amp[keep]
-    if new.size == 0:
+    if new.size:
+        start = np.concatenate((np.where(st.ok, st.x0, res.x_init), new))
+        res = _fit_lines(data, base, start, np.concatenate((st.flux, new_amp)), np.concatenate((res.x_init, new)),
+                         widths, blend_separation)
+        st = res.st
+    drop = _satellites(res) | (st.ok & (st.flux <= 0))
+    if not drop.any():
         return res
-    start = np.concatenate((np.where(res.ok, res.x0, res.x_init), new))
-    return _fit_lines(data, base, start, np.concatenate((np.maximum(res.flux, 0.0), new_amp)),
-                      np.concatenate((res.x_init, new)), fwhm, min_snr, blend_separation)
+    keep = ~drop
+    again = _fit_lines(data, base, np.where(st.ok, st.x0, res.x_init)[keep], st.flux[keep],
+                       res.x_init[keep], widths, blend_separation)
+    again.n_dropped = int(np.count_nonzero(drop))
+    return again
 
 
 def _fit_lines(data: _Data, base: np.ndarray, pos: np.ndarray, amp: np.ndarray, x_init: np.ndarray,
-               fwhm: float, min_snr: float, blend_separation: float) -> _Result:
-    """Fit all lines starting at ``pos`` (two passes, neighbours and the width of saturated
-    lines updated in between)."""
+               widths: WidthModel, blend_separation: float) -> _Result:
+    """Fit all lines starting at ``pos``.
+
+    Lines closer than ``blend_separation`` expected FWHM form a group; a group of more than
+    :data:`_MAX_CHUNK` lines is cut at its widest gaps into chunks of at most that many. Every
+    chunk is fitted together with the next line of its group on each side (overlap: fitted, not
+    kept), the lines beyond held as fixed contributions, in :data:`_PASSES` passes that update
+    them. Each line
+    has its own width, bounded within a factor :data:`_WIDTH_SPAN` (:data:`_START_SPAN` while
+    the width model is only a starting guess) of the expected FWHM at its position; a saturated
+    line's width has a Gaussian prior in ``ln sigma`` at the expected width with the scatter of
+    widths about the width model.
+    """
     n = pos.size
-    sigma0 = fwhm / FWHM_PER_SIGMA
-    sat_line = _saturated_lines(data, pos, fwhm)
+    expected = widths(pos)
+    sat_line = _saturated_lines(data, pos, expected)
     pos = np.where(sat_line, _saturated_centres(data, pos), pos)
-    res = _Result(x0=pos.copy(), x_init=np.asarray(x_init, float).copy(), flux=np.maximum(amp, 0.0),
-                  sigma=np.full(n, sigma0), background=np.zeros(n), x_err=np.full(n, np.nan),
-                  flux_err=np.full(n, np.nan), sigma_err=np.full(n, np.nan), redchi=np.full(n, np.nan),
-                  ok=np.zeros(n, bool), group_size=np.ones(n, int), saturated=sat_line, continuum=base)
+    expected = widths(pos)
+    sigma0 = expected / FWHM_PER_SIGMA
+    span = _WIDTH_SPAN if widths.n_lines > 0 else _START_SPAN
+    st = FitState(x0=pos.copy(), flux=np.maximum(amp, 0.0), sigma=sigma0.copy(), background=np.zeros(n),
+                  x_err=np.full(n, np.nan), flux_err=np.full(n, np.nan), sigma_err=np.full(n, np.nan),
+                  redchi=np.full(n, np.nan), ok=np.zeros(n, bool), sigma_lo=sigma0 / span,
+                  sigma_hi=sigma0 * span, prior_ln_sigma=np.log(sigma0),
+                  prior_weight=np.where(sat_line, 1.0 / widths.scatter ** 2, 0.0))
+    res = _Result(st=st, x_init=np.asarray(x_init, float).copy(), group_size=np.ones(n, int),
+                  saturated=sat_line, expected=expected, continuum=base)
     if n == 0:
         return res
-    groups = _groups(pos, blend_separation * fwhm)
-    by_size: dict[int, list[np.ndarray]] = {}
+    groups = _groups(pos, blend_separation * expected)
+    units_list: list[list[int]] = []
+    owned_list: list[list[bool]] = []
     for g in groups:
         res.group_size[g] = len(g)
-        by_size.setdefault(len(g), []).append(np.asarray(g))
-    half = max(3, int(math.ceil(2.5 * fwhm)))
-    for _ in range(2):
-        for members in by_size.values():
-            _fit_batch(data, base, res, np.stack(members), half, sigma0)
-        sigma0 = _typical_fwhm(res, fwhm, min_snr) / FWHM_PER_SIGMA  # width of saturated lines
+        start = 0
+        for c in _chunks(g, pos):
+            # a chunk is fitted with one more line of its group on each side, free but not kept
+            lo, hi = max(start - 1, 0), min(start + len(c) + 1, len(g))
+            units_list.append(g[lo:hi])
+            owned_list.append([lo + k >= start and lo + k < start + len(c) for k in range(hi - lo)])
+            start += len(c)
+    # single lines in one batch, chunks of several lines in another (padded with -1)
+    batches = []
+    for pick in (lambda u: len(u) == 1, lambda u: len(u) > 1):
+        rows = [k for k, u in enumerate(units_list) if pick(u)]
+        if not rows:
+            continue
+        size = max(len(units_list[k]) for k in rows)
+        units = np.full((len(rows), size), -1)
+        owned = np.zeros((len(rows), size), bool)
+        for r, k in enumerate(rows):
+            units[r, :len(units_list[k])] = units_list[k]
+            owned[r, :len(units_list[k])] = owned_list[k]
+        half = np.ceil(_FIT_HALF_WIDTH * np.where(units >= 0, expected[units], 0.0).max(axis=1))
+        batches.append((units, owned, np.maximum(half, 3).astype(int)))
+    fit_data = FitData(flux=data.flux, read_var=data.read_var, fit_ok=data.fit_ok, floor=data.floor)
+    for _ in range(_PASSES):
+        for units, owned, half in batches:
+            fit_units(fit_data, base, st, units, half, owned=owned)
     return res
 
 
-def _line_model(res: _Result, n: int, fwhm: float) -> np.ndarray:
+def _chunks(group: list[int], pos: np.ndarray) -> list[list[int]]:
+    """``group`` (sorted by position) cut at its widest gaps into pieces of at most
+    :data:`_MAX_CHUNK` lines."""
+    if len(group) <= _MAX_CHUNK:
+        return [group]
+    gaps = np.diff(pos[group])
+    k = int(np.argmax(gaps)) + 1
+    return _chunks(group[:k], pos) + _chunks(group[k:], pos)
+
+
+def _satellites(res: _Result) -> np.ndarray:
+    """Lines that do not stand out above the fitted profile of a brighter neighbour.
+
+    A line is a satellite when its own peak (the amplitude of its fitted Gaussian) is no higher
+    than the sum of the fitted Gaussians of the brighter lines at its centre: it is then a
+    shoulder on their wings, which a departure of the real profile from a Gaussian (or a
+    saturated core) explains as well as a line does. Lines whose fit failed do not count.
+    """
+    st = res.st
+    n = st.x0.size
+    if n < 2:
+        return np.zeros(n, bool)
+    usable = st.ok & np.isfinite(st.x0) & np.isfinite(st.sigma) & (st.flux > 0)
+    amp = np.where(usable, st.flux * _INV_SQRT_2PI / st.sigma, 0.0)
+    order = np.argsort(st.x0)
+    x, a, s = st.x0[order], amp[order], st.sigma[order]
+    wing = np.zeros(n)
+    for k in range(1, _NEIGHBOUR_LINES + 1):
+        for shift in (k, -k):
+            j = np.clip(np.arange(n) + shift, 0, n - 1)
+            valid = (np.arange(n) + shift >= 0) & (np.arange(n) + shift < n) & (a[j] > a)
+            wing += np.where(valid, a[j] * np.exp(-0.5 * ((x - x[j]) / s[j]) ** 2), 0.0)
+    out = np.zeros(n, bool)
+    out[order] = usable[order] & (a <= wing)
+    return out
+
+
+def _line_model(res: _Result) -> np.ndarray:
     """Sum of the fitted line profiles (without background) over the whole spectrum."""
-    half = int(math.ceil(4.0 * fwhm))
-    good = np.isfinite(res.x0) & np.isfinite(res.flux) & np.isfinite(res.sigma)
-    x0, flux, sigma = res.x0[good], res.flux[good], res.sigma[good]
+    st = res.st
+    n = res.continuum.size
+    good = np.isfinite(st.x0) & np.isfinite(st.flux) & np.isfinite(st.sigma)
+    x0, flux, sigma = st.x0[good], st.flux[good], st.sigma[good]
+    if x0.size == 0:
+        return np.zeros(n)
+    half = int(math.ceil(4.0 * FWHM_PER_SIGMA * sigma.max()))
     lo = np.floor(x0).astype(int) - half
     pix = lo[:, None] + np.arange(2 * half + 2)[None, :]
-    e, _, _ = _profile((pix - 0.5)[:, :, None], x0[:, None, None], sigma[:, None, None])
+    e, _, _ = profile((pix - 0.5)[:, :, None], x0[:, None, None], sigma[:, None, None])
     values = e[:, :, 0] * flux[:, None]
     pix = pix[:, :-1]
     inside = (pix >= 0) & (pix < n)
@@ -482,14 +639,14 @@ def _line_model(res: _Result, n: int, fwhm: float) -> np.ndarray:
     return model
 
 
-def _saturated_lines(data: _Data, pos: np.ndarray, fwhm: float) -> np.ndarray:
+def _saturated_lines(data: _Data, pos: np.ndarray, fwhm: np.ndarray) -> np.ndarray:
     if not data.saturated.any() or pos.size == 0:
         return np.zeros(pos.size, bool)
     sat_idx = np.flatnonzero(data.saturated)
     j = np.searchsorted(sat_idx, pos)
     left = np.abs(pos - sat_idx[np.clip(j - 1, 0, sat_idx.size - 1)])
     right = np.abs(sat_idx[np.clip(j, 0, sat_idx.size - 1)] - pos)
-    return np.minimum(left, right) <= max(fwhm, 1.0)
+    return np.minimum(left, right) <= np.maximum(fwhm, 1.0)
 
 
 def _saturated_centres(data: _Data, pos: np.ndarray) -> np.ndarray:
@@ -510,207 +667,46 @@ def _saturated_centres(data: _Data, pos: np.ndarray) -> np.ndarray:
     return out
 
 
-def _groups(pos: np.ndarray, separation: float) -> list[list[int]]:
-    """Chains of lines closer than ``separation`` (indices into ``pos``)."""
+def _groups(pos: np.ndarray, separation: np.ndarray) -> list[list[int]]:
+    """Chains of lines closer than ``separation`` (per line; the mean of two neighbours' is
+    used), as indices into ``pos`` sorted by position."""
     order = np.argsort(pos)
     groups: list[list[int]] = [[int(order[0])]]
     for a, b in zip(order[:-1], order[1:]):
-        if pos[b] - pos[a] < separation:
+        if pos[b] - pos[a] < 0.5 * (separation[a] + separation[b]):
             groups[-1].append(int(b))
         else:
             groups.append([int(b)])
     return groups
 
 
-def _profile(edges: np.ndarray, x0: np.ndarray, sigma: np.ndarray):
-    """Pixel-integrated unit Gaussian and the pieces of its derivatives.
-
-    ``edges`` (..., L + 1, 1) are the pixel boundaries of L consecutive pixels, ``x0`` (..., 1, G)
-    the centres, ``sigma`` broadcastable to them. Returns, each of shape (..., L, G): ``e`` (the
-    integral over each pixel), ``dx`` (``sigma`` times its derivative in ``x0``) and ``ds`` (its
-    derivative in ``ln sigma``).
-    """
-    z = (edges - x0) / sigma
-    cdf = ndtr(z)
-    pdf = np.exp(-0.5 * z * z) * _INV_SQRT_2PI
-    zpdf = z * pdf
-    return (cdf[..., 1:, :] - cdf[..., :-1, :], pdf[..., :-1, :] - pdf[..., 1:, :],
-            zpdf[..., :-1, :] - zpdf[..., 1:, :])
-
-
-def _others(res: _Result, units: np.ndarray, edges: np.ndarray, k_side: int = 3) -> np.ndarray:
-    """Model of the nearest lines outside each unit (``k_side`` on each side), in its window."""
-    order = np.argsort(res.x0)
-    rank = np.empty_like(order)
-    rank[order] = np.arange(order.size)
-    first = rank[units].min(axis=1)
-    last = rank[units].max(axis=1)
-    offsets = np.concatenate((np.arange(-k_side, 0), np.arange(1, k_side + 1)))
-    nb_rank = np.where(offsets < 0, first[:, None] + offsets, last[:, None] + offsets)
-    nb = order[np.clip(nb_rank, 0, order.size - 1)]
-    valid = (nb_rank >= 0) & (nb_rank < order.size) & ~np.any(nb[:, :, None] == units[:, None, :], axis=2)
-    valid &= np.isfinite(res.x0[nb]) & np.isfinite(res.flux[nb]) & np.isfinite(res.sigma[nb])
-    e, _, _ = _profile(edges[:, :, None], np.where(valid, res.x0[nb], 0.0)[:, None, :],
-                       np.where(valid, res.sigma[nb], 1.0)[:, None, :])
-    return np.sum(e * np.where(valid, res.flux[nb], 0.0)[:, None, :], axis=2)
-
-
-def _fit_batch(data: _Data, base: np.ndarray, res: _Result, units: np.ndarray, half: int,
-               sigma0: float, max_iter: int = 50) -> None:
-    """Fit every unit (row of ``units``: indices of G lines fitted jointly) at once.
-
-    Parameters per unit: G centres, G fluxes, one ln(sigma) and one constant background. The
-    results are written into ``res``.
-    """
-    n_units, g = units.shape
-    x_lo = np.floor(res.x0[units].min(axis=1)).astype(int) - half
-    x_hi = np.ceil(res.x0[units].max(axis=1)).astype(int) + half
-    length = int((x_hi - x_lo).max()) + 1
-    pix = x_lo[:, None] + np.arange(length)[None, :]
-    safe = np.clip(pix, 0, data.n - 1)
-    mask = (pix >= 0) & (pix < data.n) & (pix <= x_hi[:, None]) & data.fit_ok[safe]
-    edges = x_lo[:, None] - 0.5 + np.arange(length + 1)[None, :]
-    offset = base[safe] + _others(res, units, edges)
-    y = data.flux[safe] - offset
-    read_var = data.read_var[safe]
-    edges3 = edges[:, :, None]
-
-    n_par = 2 * g + 2
-    i_s, i_b = 2 * g, 2 * g + 1
-    theta = np.concatenate((res.x0[units], res.flux[units],
-                            np.log(res.sigma[units].mean(axis=1, keepdims=True)),
-                            res.background[units].mean(axis=1, keepdims=True)), axis=1)
-    free = np.ones((n_units, n_par), bool)
-    sat_unit = res.saturated[units].any(axis=1)
-    theta[sat_unit, i_s] = math.log(sigma0)
-    free[sat_unit, i_s] = False
-    n_valid = mask.sum(axis=1)
-    too_few = n_valid < n_par + 2
-    free[too_few] = False
-    fixed_diag = (~free)[:, :, None] * np.eye(n_par)
-    lower = np.full((n_units, n_par), -np.inf)
-    upper = np.full((n_units, n_par), np.inf)
-    lower[:, :g], upper[:, :g] = x_lo[:, None], x_hi[:, None]
-    lower[:, i_s], upper[:, i_s] = math.log(sigma0 / 3.0), math.log(sigma0 * 3.0)
-
-    def evaluate(th: np.ndarray, with_jacobian: bool):
-        sig = np.exp(th[:, i_s])[:, None, None]
-        e, dx, ds = _profile(edges3, th[:, None, :g], sig)
-        amp = th[:, None, g:2 * g]
-        mu = np.sum(e * amp, axis=2) + th[:, i_b][:, None]
-        if not with_jacobian:
-            return mu, None
-        jac = np.empty((n_units, length, n_par))
-        jac[:, :, :g] = amp * dx / sig
-        jac[:, :, g:2 * g] = e
-        jac[:, :, i_s] = np.sum(amp * ds, axis=2)
-        jac[:, :, i_b] = 1.0
-        return mu, jac * free[:, None, :]
-
-    def weights(mu: np.ndarray) -> np.ndarray:
-        var = np.maximum(mu + offset, 0.0) + read_var
-        return np.where(mask, 1.0 / np.maximum(var, data.floor), 0.0)
-
-    lam = np.full(n_units, 1e-3)
-    done = too_few.copy()
-    for _ in range(max_iter):
-        mu, jac = evaluate(theta, True)
-        w = weights(mu)
-        resid = y - mu
-        chi2 = np.sum(w * resid * resid, axis=1)
-        jw = jac * w[:, :, None]
-        normal = np.einsum("ulp,ulq->upq", jw, jac)
-        grad = np.einsum("ulp,ul->up", jw, resid)
-        # parameters held at a bound they are pushed against are fixed for this iteration
-        held = ((theta <= lower) & (grad < 0)) | ((theta >= upper) & (grad > 0))
-        keep = ~held
-        normal = normal * keep[:, :, None] * keep[:, None, :] + held[:, :, None] * np.eye(n_par)
-        grad = grad * keep
-        diag = np.maximum(np.einsum("upp->up", normal), 1e-300)
-        damped = normal + (lam[:, None] * diag)[:, :, None] * np.eye(n_par) + fixed_diag
-        step = np.linalg.solve(damped, grad[:, :, None])[:, :, 0]
-        sig = np.exp(theta[:, i_s])[:, None]
-        step[:, :g] = np.clip(step[:, :g], -sig, sig)
-        step[:, i_s] = np.clip(step[:, i_s], -0.5, 0.5)
-        step[done] = 0.0
-        trial = np.clip(theta + step, lower, upper)
-        change = trial - theta
-        resid_t = y - evaluate(trial, False)[0]
-        actual = chi2 - np.sum(w * resid_t * resid_t, axis=1)
-        predicted = 2.0 * np.sum(change * grad, axis=1) - np.einsum("up,upq,uq->u", change, normal, change)
-        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-            gain = np.where(predicted > 0, actual / np.maximum(predicted, 1e-300), -np.inf)
-        better = (actual >= -1e-12 * chi2) & ~done
-        theta = np.where(better[:, None], trial, theta)
-        # converged: the step moves the parameters by < 1 % of their uncertainty (chi-square
-        # change < 1e-4), or by < 1e-5 pixel
-        small = np.all(np.abs(change[:, :g]) < 1e-5, axis=1) & (np.abs(change[:, i_s]) < 1e-5)
-        done |= small | (better & (predicted < 1e-4)) | (lam > 1e10)
-        # Marquardt-style damping control from the ratio of actual to predicted reduction
-        factor = np.where(gain > 0.75, 1.0 / 3.0, np.where(gain < 0.25, 2.0, 1.0))
-        lam = np.where(better, np.maximum(lam * factor, 1e-7), lam * 4.0)
-        if done.all():
-            break
-
-    mu, jac = evaluate(theta, True)
-    w = weights(mu)
-    chi2 = np.sum(w * (y - mu) ** 2, axis=1)
-    normal = np.einsum("ulp,ulq->upq", jac * w[:, :, None], jac) + fixed_diag
-    scale = np.sqrt(np.maximum(np.einsum("upp->up", normal), 1e-300))
-    scaled = normal / (scale[:, :, None] * scale[:, None, :])
-    invertible = np.linalg.cond(scaled) < 1e12
-    cov = np.full_like(normal, np.nan)
-    cov[invertible] = np.linalg.inv(scaled[invertible]) / (scale[invertible][:, :, None]
-                                                            * scale[invertible][:, None, :])
-    var = np.einsum("upp->up", cov)
-    var = np.where(free & (var > 0), var, np.nan)
-    dof = np.maximum(n_valid - free.sum(axis=1), 1)
-
-    sigma_fit = np.exp(theta[:, i_s])
-    res.x0[units] = theta[:, :g]
-    res.flux[units] = theta[:, g:2 * g]
-    res.sigma[units] = sigma_fit[:, None]
-    res.background[units] = theta[:, i_b][:, None]
-    res.x_err[units] = np.sqrt(var[:, :g])
-    res.flux_err[units] = np.sqrt(var[:, g:2 * g])
-    res.sigma_err[units] = (sigma_fit * np.sqrt(var[:, i_s]))[:, None]
-    res.redchi[units] = (chi2 / dof)[:, None]
-    res.ok[units] = (done & ~too_few & invertible)[:, None]
-
-
 # ------------------------------------------------------------------------------------------------
 # Results
 # ------------------------------------------------------------------------------------------------
 
-def _typical_fwhm(res: _Result, fallback: float, min_snr: float) -> float:
-    if res.x0.size == 0:
-        return fallback
-    fwhm = res.sigma * FWHM_PER_SIGMA
-    snr = res.flux / res.flux_err
-    use = res.ok & (res.group_size == 1) & ~res.saturated & np.isfinite(fwhm) & (snr >= max(min_snr, 10.0))
-    if np.count_nonzero(use) < 3:
-        use = res.ok & ~res.saturated & np.isfinite(fwhm) & (res.flux > 0)
-    if np.count_nonzero(use) < 1:
-        return fallback
-    return float(np.median(fwhm[use]))
+def _width_model(res: _Result, fallback: WidthModel, n: int) -> WidthModel:
+    """Width model fitted to every well-measured line (see :mod:`wavecal._line_widths`).
 
-
-def _local_fwhm(res: _Result, typical: float) -> np.ndarray:
-    """Expected FWHM at each line: a robust quadratic in position through the isolated,
-    unsaturated, well-measured lines (the constant ``typical`` when there are fewer than 8)."""
-    fwhm = res.sigma * FWHM_PER_SIGMA
-    use = (res.ok & (res.group_size == 1) & ~res.saturated & np.isfinite(res.sigma_err)
-           & (res.flux > 10.0 * res.flux_err))
-    if np.count_nonzero(use) < 8:
-        return np.full(fwhm.shape, typical)
-    x, y = res.x0[use], fwhm[use]
-    keep = np.ones(x.size, bool)
-    for _ in range(3):
-        coef = np.polynomial.polynomial.polyfit(x[keep], y[keep], 2)
-        resid = y - np.polynomial.polynomial.polyval(x, coef)
-        scale = 1.4826 * np.median(np.abs(resid[keep])) + 1e-12
-        keep = np.abs(resid) < 4.0 * scale
-    return np.polynomial.polynomial.polyval(res.x0, coef)
+    A width counts when the fit converged, the line is not saturated, its flux is positive, the
+    centre stayed within one expected FWHM of the detection and the width is not held at a bound
+    (a width at a bound is not a measurement); of these, the lines with a flux S/N of at least
+    :data:`_WIDTH_SNR`, or all of them when fewer than
+    :data:`~wavecal._line_widths.LINES_PER_COEFFICIENT` are that bright.
+    """
+    st = res.st
+    if st.x0.size == 0:
+        return fallback
+    with np.errstate(divide="ignore", invalid="ignore"):
+        snr = st.flux / st.flux_err
+    inside_bounds = (st.sigma > st.sigma_lo * 1.001) & (st.sigma < st.sigma_hi / 1.001)
+    use = (st.ok & ~res.saturated & np.isfinite(st.sigma_err) & (st.flux > 0) & inside_bounds
+           & (np.abs(st.x0 - res.x_init) <= res.expected))
+    if np.count_nonzero(use & (snr >= _WIDTH_SNR)) >= LINES_PER_COEFFICIENT:
+        use &= snr >= _WIDTH_SNR
+    if not use.any():
+        return fallback
+    return fit_width_model(st.x0[use], st.sigma[use] * FWHM_PER_SIGMA, st.sigma_err[use] * FWHM_PER_SIGMA,
+                           n, fallback=fallback)
 
 
 def _distance_to_bad(data: _Data, pos: np.ndarray) -> np.ndarray:
@@ -727,56 +723,64 @@ def _distance_to_bad(data: _Data, pos: np.ndarray) -> np.ndarray:
     return np.minimum(ends, np.minimum(np.abs(left), np.abs(right)) - 0.5)
 
 
-def _table(data: _Data, res: _Result, typical: float, margin: float, x_offset: float) -> PeakTable:
-    n = res.x0.size
+def _table(data: _Data, res: _Result, widths: WidthModel, margin: float, x_offset: float) -> PeakTable:
+    st = res.st
+    n = st.x0.size
+    typical = widths.median(data.n)
     if n == 0:
-        return _empty(typical)
-    fwhm = res.sigma * FWHM_PER_SIGMA
-    fwhm_err = res.sigma_err * FWHM_PER_SIGMA
-    x_err = np.where(res.saturated, 2.0 * res.x_err, res.x_err)
+        return PeakTable(table=_empty_frame(), fwhm_typical=typical, width_model=widths, x_offset=float(x_offset))
+    fwhm = st.sigma * FWHM_PER_SIGMA
+    fwhm_err = st.sigma_err * FWHM_PER_SIGMA
+    pos = np.clip(st.x0, 0.0, data.n - 1.0)
+    expected = widths(pos)
     flags = np.zeros(n, dtype=np.int64)
     flags |= np.where(res.saturated, int(PeakFlag.SATURATED), 0)
     flags |= np.where(res.group_size > 1, int(PeakFlag.BLENDED), 0)
-    inside = (res.x0 > -0.5) & (res.x0 < data.n - 0.5)
-    pos = np.clip(res.x0, 0.0, data.n - 1.0)
+    inside = (st.x0 > -0.5) & (st.x0 < data.n - 0.5)
     flags |= np.where(_distance_to_bad(data, pos) < margin, int(PeakFlag.EDGE), 0)
-    finite = np.isfinite(res.x0) & np.isfinite(x_err) & np.isfinite(res.flux)
-    poor = ~res.ok | ~finite | (res.flux <= 0) | (np.abs(res.x0 - res.x_init) > typical)
+    finite = np.isfinite(st.x0) & np.isfinite(st.x_err) & np.isfinite(st.flux)
+    poor = ~st.ok | ~finite | (st.flux <= 0) | (np.abs(st.x0 - res.x_init) > expected)
     flags |= np.where(poor, int(PeakFlag.POOR_FIT), 0)
-    local = _local_fwhm(res, typical)
-    odd = (np.abs(np.log(np.maximum(fwhm, 1e-9) / local)) > math.log(_ODD_WIDTH_RATIO)) & (
-        np.abs(fwhm - local) > 5.0 * fwhm_err)
-    flags |= np.where(odd & ~res.saturated, int(PeakFlag.ODD_WIDTH), 0)
+    log_ratio = np.log(np.maximum(fwhm, 1e-9) / expected)
+    odd = (np.abs(log_ratio) > math.log(_ODD_WIDTH_RATIO)) & (np.abs(fwhm - expected) > 5.0 * fwhm_err)
+    odd &= ~res.saturated
+    flags |= np.where(odd, int(PeakFlag.ODD_WIDTH), 0)
+    # A line of ODD_WIDTH wider than expected may be two: the centroid of a blend lies at most
+    # sqrt(sigma_obs² - sigma_expected²) from its brighter component; that goes into its x_err.
+    excess = np.maximum(st.sigma ** 2 - (expected / FWHM_PER_SIGMA) ** 2, 0.0)
+    x_err = np.where(odd, np.sqrt(st.x_err ** 2 + excess), st.x_err)
     # A saturated line whose wings could not be fitted: centre of the saturated run.
     fallback = res.saturated & ~np.isfinite(x_err)
-    x_err = np.where(fallback, np.maximum(fwhm, 1.0) / math.sqrt(12.0), x_err)
-    x0 = np.where(fallback, res.x_init, res.x0)
-
+    x_err = np.where(fallback, np.maximum(expected, 1.0) / math.sqrt(12.0), x_err)
+    x0 = np.where(fallback, res.x_init, st.x0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        snr = st.flux / st.flux_err
     continuum = np.interp(pos, np.arange(data.n), res.continuum)
     table = pd.DataFrame({
         "x": x0 + x_offset,
         "x_err": x_err,
         "fwhm": fwhm,
         "fwhm_err": np.where(res.saturated, np.nan, fwhm_err),
-        "flux": res.flux,
-        "flux_err": res.flux_err,
-        "amplitude": res.flux * _INV_SQRT_2PI / res.sigma,
-        "background": res.background + continuum,
-        "snr": res.flux / res.flux_err,
-        "redchi": res.redchi,
+        "flux": st.flux,
+        "flux_err": st.flux_err,
+        "amplitude": st.flux * _INV_SQRT_2PI / st.sigma,
+        "background": st.background + continuum,
+        "snr": np.where(np.isfinite(snr), snr, np.nan),
+        "redchi": st.redchi,
         "flags": flags,
+        "fwhm_expected": expected,
     })
     table = table[inside].sort_values("x", kind="stable").reset_index(drop=True)
-    table = _drop_duplicates(table, 0.5 * typical)
-    return PeakTable(table=table, fwhm_typical=float(typical))
+    table = _drop_duplicates(table, 0.5 * table["fwhm_expected"].to_numpy())
+    return PeakTable(table=table, fwhm_typical=float(typical), width_model=widths, x_offset=float(x_offset))
 
 
-def _drop_duplicates(table: pd.DataFrame, tolerance: float) -> pd.DataFrame:
+def _drop_duplicates(table: pd.DataFrame, tolerance: np.ndarray) -> pd.DataFrame:
     """Of two fitted centres closer than ``tolerance``, keep the brighter and flag it POOR_FIT."""
     if len(table) < 2:
         return table
     x = table["x"].to_numpy()
-    close = np.flatnonzero(np.diff(x) < tolerance)
+    close = np.flatnonzero(np.diff(x) < tolerance[1:])
     if close.size == 0:
         return table
     flux = table["flux"].to_numpy()
@@ -790,7 +794,5 @@ def _drop_duplicates(table: pd.DataFrame, tolerance: float) -> pd.DataFrame:
     return table.drop(index=sorted(drop)).reset_index(drop=True)
 
 
-def _empty(fwhm: float) -> PeakTable:
-    table = pd.DataFrame({name: pd.Series(dtype=np.int64 if name == "flags" else float)
-                          for name in COLUMNS})
-    return PeakTable(table=table, fwhm_typical=float(fwhm))
+def _empty_frame() -> pd.DataFrame:
+    return pd.DataFrame({name: pd.Series(dtype=np.int64 if name == "flags" else float) for name in COLUMNS})
