@@ -18,6 +18,10 @@ def model():
     return nominal_model(load_profile("tho_approximate"))
 
 
+def _width(fwhm_px):
+    return lambda x: np.full(np.shape(x), fwhm_px)
+
+
 def _list(wavelengths, intensities, elements):
     n = len(wavelengths)
     return LineList(np.array(wavelengths, float), np.array(intensities, float), np.array(elements),
@@ -29,7 +33,7 @@ def test_an_unresolved_pair_becomes_one_feature_at_its_centroid(model):
     fwhm_px = 4.0
     a, b = 560.0, 560.0 + 0.5 * fwhm_px * per_px  # half a line width apart
     lines = _list([a, b, 600.0], [1000.0, 400.0, 500.0], ["Ne", "Ne", "Ne"])
-    resolved = resolve_lines(lines, model, fwhm_px)
+    resolved = resolve_lines(lines, model, _width(fwhm_px))
     assert len(resolved) == 2
     assert resolved.members.tolist() == [2, 1]
     # first moment of the summed profile, by numerical integration
@@ -50,7 +54,7 @@ def test_an_unresolved_pair_becomes_one_feature_at_its_centroid(model):
 def test_resolved_lines_stay_apart(model):
     per_px = abs(float(model.dispersion(640.0)))
     lines = _list([560.0, 560.0 + 1.2 * 4.0 * per_px], [1.0, 1.0], ["Ne", "Ne"])
-    resolved = resolve_lines(lines, model, 4.0)
+    resolved = resolve_lines(lines, model, _width(4.0))
     assert resolved.members.tolist() == [1, 1]
     np.testing.assert_allclose(resolved.lines.wavelength_nm, lines.wavelength_nm)
 
@@ -58,8 +62,8 @@ def test_resolved_lines_stay_apart(model):
 def test_pairs_of_two_elements_have_the_wider_uncertainty(model):
     per_px = abs(float(model.dispersion(640.0)))
     step = 0.5 * 4.0 * per_px
-    same = resolve_lines(_list([560.0, 560.0 + step], [1.0, 1.0], ["Ne", "Ne"]), model, 4.0)
-    mixed = resolve_lines(_list([560.0, 560.0 + step], [1.0, 1.0], ["Ar", "Ne"]), model, 4.0)
+    same = resolve_lines(_list([560.0, 560.0 + step], [1.0, 1.0], ["Ne", "Ne"]), model, _width(4.0))
+    mixed = resolve_lines(_list([560.0, 560.0 + step], [1.0, 1.0], ["Ar", "Ne"]), model, _width(4.0))
     assert mixed.sigma_nm[0] / same.sigma_nm[0] == pytest.approx(
         OTHER_ELEMENT_RATIO_DEX / SAME_ELEMENT_RATIO_DEX)
     assert mixed.lines.element[0] == "Ar+Ne"
@@ -70,6 +74,16 @@ def test_intensities_are_compared_within_each_element_only(model):
     per_px = abs(float(model.dispersion(640.0)))
     lines = _list([560.0, 560.0 + 0.3 * 4.0 * per_px, 620.0, 630.0],
                   [100000.0, 1000.0, 50000.0, 500.0], ["Ar", "Ne", "Ar", "Ne"])
-    resolved = resolve_lines(lines, model, 4.0)
+    resolved = resolve_lines(lines, model, _width(4.0))
     assert resolved.lines.intensity[0] == pytest.approx(2.0)  # 1.0 (Ar) + 1.0 (Ne)
     assert resolved.lines.intensity[-1] == pytest.approx(0.5)  # half of Ne's brightest
+
+
+def test_the_merging_width_follows_the_width_model(model):
+    # the same pair is one feature where the lines are wide and two where they are narrow
+    per_px = abs(float(model.dispersion(640.0)))
+    lines = _list([480.0, 480.0 + 3.0 * per_px, 640.0, 640.0 + 3.0 * per_px],
+                  [1.0, 1.0, 1.0, 1.0], ["Ne"] * 4)
+    blue = float(model.pixel(480.0))
+    resolved = resolve_lines(lines, model, lambda x: np.where(np.asarray(x) < blue + 50, 6.0, 2.0))
+    assert resolved.members.tolist() == [2, 1, 1]

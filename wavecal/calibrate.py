@@ -149,7 +149,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     table = peaks.table
     x = table["x"].to_numpy(float)
     fwhm = float(peaks.fwhm_typical) if np.isfinite(peaks.fwhm_typical) else 3.0
-    features = resolve_lines(line_list.in_range(lo, hi), nominal, fwhm)
+    features = resolve_lines(line_list.in_range(lo, hi), nominal, peaks.fwhm_at)
     ident = identify_lines(nominal, box, x, features.lines.wavelength_nm,
                            intensity=features.lines.intensity,
                            vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
@@ -184,20 +184,16 @@ def _line_sigma(features: ResolvedLines) -> np.ndarray:
 
 
 def _centre_sigma(table: pd.DataFrame, fwhm: float) -> np.ndarray:
-    """Peak-centre uncertainties, inflated for peaks that may be two unresolved lines.
+    """Peak-centre uncertainties, with a poorly fitted peak kept but widened.
 
-    A peak wider than the typical line (or poorly fitted by one profile) is kept, with its
-    centre uncertain by half its excess width (a quarter of its width for a poor fit): roughly
-    how far an unseen companion could pull it.
+    The peak finder already widens the ``x_err`` of a line wider than expected (a possible
+    blend); a peak that one profile does not fit is kept with its centre uncertain by a quarter
+    of its width, roughly how far an unseen companion could pull it.
     """
     x_err = table["x_err"].to_numpy(float)
-    width = table["fwhm"].to_numpy(float)
-    flags = table["flags"].to_numpy(int)
-    excess = np.where((flags & int(PeakFlag.ODD_WIDTH)) != 0,
-                      0.5 * np.abs(np.nan_to_num(width, nan=fwhm) - fwhm), 0.0)
-    poor = np.where((flags & int(PeakFlag.POOR_FIT)) != 0, 0.25 * np.nan_to_num(width, nan=fwhm), 0.0)
-    sigma = np.sqrt(np.nan_to_num(x_err, nan=fwhm) ** 2 + excess**2 + poor**2)
-    return np.maximum(sigma, 1e-4)
+    width = np.nan_to_num(table["fwhm"].to_numpy(float), nan=fwhm)
+    poor = np.where((table["flags"].to_numpy(int) & int(PeakFlag.POOR_FIT)) != 0, 0.25 * width, 0.0)
+    return np.maximum(np.hypot(np.nan_to_num(x_err, nan=fwhm), poor), 1e-4)
 
 
 def _converge(model, box, x, x_err, lam, lam_err, assoc, tolerance, fwhm, free_grooves,

@@ -19,6 +19,7 @@ range, so that a faint line of one element never counts as the equal of a strong
 """
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -70,18 +71,19 @@ def _normalised_intensity(lines: LineList) -> np.ndarray:
     return out
 
 
-def resolve_lines(lines: LineList, model: GratingModel, fwhm_px: float) -> ResolvedLines:
-    """Merge listed lines closer than ``fwhm_px`` (at ``model``'s dispersion) into features.
+def resolve_lines(lines: LineList, model: GratingModel,
+                  fwhm_at: Callable[[np.ndarray], np.ndarray]) -> ResolvedLines:
+    """Merge listed lines closer than the line width (at ``model``'s dispersion) into features.
 
     Parameters
     ----------
     lines : LineList
         The lines that may appear on the detector, sorted by wavelength.
     model : GratingModel
-        Sets the local dispersion (nm per pixel) at each line; the nominal model is close
-        enough (its dispersion is known to a few per cent).
-    fwhm_px : float
-        Measured line width (pixels).
+        Sets the local dispersion (nm per pixel) and the position of each line; the nominal
+        model is close enough (its dispersion is known to a few per cent).
+    fwhm_at : callable
+        Measured line width (pixels) at given pixels, e.g. :meth:`wavecal.peaks.PeakTable.fwhm_at`.
 
     Returns
     -------
@@ -93,9 +95,11 @@ def resolve_lines(lines: LineList, model: GratingModel, fwhm_px: float) -> Resol
         return ResolvedLines(lines, np.zeros(0), np.zeros(0, int))
     weight = _normalised_intensity(lines)
     pixel = model.pixel(lam)
-    per_px = np.abs(model.dispersion(np.where(np.isfinite(pixel), pixel, 0.5 * model.n_pixels)))
+    pixel = np.clip(np.where(np.isfinite(pixel), pixel, 0.5 * model.n_pixels), 0, model.n_pixels - 1)
+    per_px = np.abs(model.dispersion(pixel))
     gap_px = np.diff(lam) / np.minimum(per_px[:-1], per_px[1:])
-    starts = np.r_[0, np.flatnonzero(~(gap_px < fwhm_px)) + 1]
+    width = np.asarray(fwhm_at(0.5 * (pixel[:-1] + pixel[1:])), float)
+    starts = np.r_[0, np.flatnonzero(~(gap_px < width)) + 1]
     ends = np.r_[starts[1:], n]
     centre = np.empty(starts.size)
     sigma = np.zeros(starts.size)
