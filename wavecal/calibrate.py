@@ -146,7 +146,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     extra_list = load_line_list(extras, medium=profile.medium) if extras else None
     lo, hi = _reachable_range(nominal, box)
 
-    table = peaks.table
+    table = _detections(peaks.table, min_snr, nominal.n_pixels)
     x = table["x"].to_numpy(float)
     fwhm = float(peaks.fwhm_typical) if np.isfinite(peaks.fwhm_typical) else 3.0
     features = resolve_lines(line_list.in_range(lo, hi), nominal, peaks.fwhm_at)
@@ -163,6 +163,15 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     if details:
         return Calibration(solution, spectrum, peaks, ident, fit, nominal, box, slit)
     return solution
+
+
+def _detections(table: pd.DataFrame, min_snr: float, n_pixels: int) -> pd.DataFrame:
+    """The peaks that are detections: fitted at the detection threshold or above, with their
+    centre on the detector (a fit of a crowded group can leave a faint member, or one pushed
+    past the edge, that the matched filter alone would not have found)."""
+    x = table["x"].to_numpy(float)
+    keep = (table["snr"].to_numpy(float) >= min_snr) & (x >= 0.0) & (x <= n_pixels - 1.0)
+    return table[keep].reset_index(drop=True)
 
 
 def _reachable_range(model: GratingModel, box: PriorBox) -> tuple[float, float]:
