@@ -300,10 +300,10 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
     lines_df = _line_table(table, model, lines, full_list, extra_list, pairs_peak, pairs_line, fit.used,
                            unconfirmed, fwhm)
     used_lam = lam[pairs_line[fit.used]]
-    rms_nm = float(np.sqrt(np.mean((model.wavelength(x[used_peaks]) - used_lam) ** 2))) \
-        if used_peaks.size else math.nan
-    rms_kms = float(np.sqrt(np.mean(((model.wavelength(x[used_peaks]) - used_lam) / used_lam
-                                     * SPEED_OF_LIGHT_KMS) ** 2))) if used_peaks.size else math.nan
+    offset_nm = model.wavelength(x[used_peaks]) - used_lam
+    weight = 1.0 / fit.sigma_px[fit.used] ** 2  # as in FitResult.rms_px
+    rms_nm = _weighted_rms(offset_nm, weight)
+    rms_kms = _weighted_rms(offset_nm / used_lam * SPEED_OF_LIGHT_KMS, weight)
     parameters = []
     for name, value, error in zip(fit.names, fit.values, fit.errors):
         nominal, width = priors.get(name, (math.nan, math.nan))
@@ -332,6 +332,10 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
         frame=str(frame.path) if frame.path else None, profile=profile.name, lamps=tuple(lamps),
         dispersion_axis=profile.detector.dispersion_axis, software_version=__version__, slit=slit)
     return solution, fit
+
+
+def _weighted_rms(values: np.ndarray, weight: np.ndarray) -> float:
+    return float(np.sqrt(np.sum(weight * values**2) / np.sum(weight))) if values.size else math.nan
 
 
 def _evidence(fit: FitResult, model: GratingModel, used_x: np.ndarray) -> dict[str, float]:

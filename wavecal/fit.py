@@ -96,9 +96,14 @@ class FitResult:
 
     @property
     def rms_px(self) -> float:
-        """Unweighted RMS of the kept residuals (pixels)."""
+        """RMS of the kept residuals (pixels), each weighted by its inverse variance, so that a
+        line kept with a widened uncertainty (a possible blend) counts as little here as in
+        the fit."""
         r = self.residual_px[self.used]
-        return float(np.sqrt(np.mean(r**2))) if r.size else float("nan")
+        if not r.size:
+            return float("nan")
+        w = 1.0 / self.sigma_px[self.used] ** 2
+        return float(np.sqrt(np.sum(w * r**2) / np.sum(w)))
 
     @property
     def leave_one_out_px(self) -> np.ndarray:
