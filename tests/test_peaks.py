@@ -6,6 +6,10 @@ read noise: Fisher information I = Σ_i (∂μ_i/∂x₀)² / (μ_i + σ_R²) (W
 Am. A 3, 1809; Mendez, Silva & Lobos 2013, PASP 125, 580). The formula, its reference
 implementation and the check values are those of ``reference-values.md`` §4.
 
+The same bound is the outside check on saturated lines: centred from their wings alone, they
+carry less information than the whole line, so their stated uncertainty must exceed it, and
+their pulls (error / stated uncertainty) over many noise draws must have unit width.
+
 Synthetic spectra are invented test data (no instrument); every random draw is seeded.
 """
 from __future__ import annotations

@@ -476,8 +476,6 @@ class _Result:
     saturated: np.ndarray
     expected: np.ndarray
     continuum: np.ndarray
-    #: Candidates dropped as wing satellites or for zero flux.
-    n_dropped: int = 0
 
 
 def _measure(data: _Data, widths: WidthModel, min_snr: float, blend_separation: float, *,
@@ -513,10 +511,8 @@ def _measure(data: _Data, widths: WidthModel, min_snr: float, blend_separation: 
     if not drop.any():
         return res
     keep = ~drop
-    again = _fit_lines(data, base, np.where(st.ok, st.x0, res.x_init)[keep], st.flux[keep],
-                       res.x_init[keep], widths, blend_separation)
-    again.n_dropped = int(np.count_nonzero(drop))
-    return again
+    return _fit_lines(data, base, np.where(st.ok, st.x0, res.x_init)[keep], st.flux[keep],
+                      res.x_init[keep], widths, blend_separation)
 
 
 def _fit_lines(data: _Data, base: np.ndarray, pos: np.ndarray, amp: np.ndarray, x_init: np.ndarray,
@@ -609,11 +605,11 @@ def _satellites(res: _Result) -> np.ndarray:
     order = np.argsort(st.x0)
     x, a, s = st.x0[order], amp[order], st.sigma[order]
     wing = np.zeros(n)
-    for k in range(1, _NEIGHBOUR_LINES + 1):
-        for shift in (k, -k):
-            j = np.clip(np.arange(n) + shift, 0, n - 1)
-            valid = (np.arange(n) + shift >= 0) & (np.arange(n) + shift < n) & (a[j] > a)
-            wing += np.where(valid, a[j] * np.exp(-0.5 * ((x - x[j]) / s[j]) ** 2), 0.0)
+    for shift in (*range(1, _NEIGHBOUR_LINES + 1), *range(-_NEIGHBOUR_LINES, 0)):
+        other = np.arange(n) + shift
+        j = np.clip(other, 0, n - 1)
+        brighter = (other >= 0) & (other < n) & (a[j] > a)
+        wing += np.where(brighter, a[j] * np.exp(-0.5 * ((x - x[j]) / s[j]) ** 2), 0.0)
     out = np.zeros(n, bool)
     out[order] = usable[order] & (a <= wing)
     return out
