@@ -25,6 +25,9 @@ __all__ = ["FitResult", "fit_lines", "wavelength_sigma", "excess_scatter", "PHYS
 PHYSICAL_PARAMETERS = ("grating_angle_deg", "focal_length_mm", "axis_pixel", "tilt_deg")
 
 _DISTORTION_DEGREES = (0, 3, 4, 5)  # 0 means no distortion term
+#: Rounds of (excess scatter, refit with it) at most: the first fit, weighted by the stated
+#: uncertainties alone, follows the brightest lines and overstates the scatter.
+_SCATTER_ITERATIONS = 5
 
 
 @dataclass(frozen=True)
@@ -249,10 +252,18 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
     degrees = [d for d in _DISTORTION_DEGREES if d <= max_distortion_degree]
     keep = allowed.copy()
     mid_degree = 3 if 3 in degrees and np.count_nonzero(keep) >= n_base + 3 + 4 else 0
+    stated = sigma_px
     model, keep = clip_pass(start, mid_degree, keep)
-    scatter = excess_scatter((x - model.pixel(lam))[keep], sigma_px[keep],
+    scatter = 0.0
+    for _ in range(_SCATTER_ITERATIONS):  # the scatter and the fit it weights, to agreement
+        new = excess_scatter((x - model.pixel(lam))[keep], stated[keep],
                              n_base + max(mid_degree - 2, 0))
-    sigma_px = np.hypot(sigma_px, scatter)
+        converged = abs(new - scatter) <= 0.05 * max(new, 1e-3)
+        scatter = new
+        sigma_px = np.hypot(stated, scatter)
+        if converged:
+            break
+        model, keep = clip_pass(model, mid_degree, keep)
 
     best = None
     for degree in degrees:
