@@ -375,27 +375,24 @@ def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_
     line_wl[pairs_peak] = lines.wavelength_nm[pairs_line]
     line_int[pairs_peak] = lines.intensity[pairs_line]
     verified[pairs_peak] = lines.verified[pairs_line]
-    # unidentified peaks that sit where a listed line would appear in twice the order
-    rest = np.setdiff1d(np.arange(n), pairs_peak)
-    if rest.size:
-        ghost_model = model.with_parameters(order=2 * model.order)
-        ghosts = associate(ghost_model, x[rest], full_list.wavelength_nm, max(0.5, 0.3 * fwhm))
-        idx = rest[ghosts.peak]
-        ident[idx] = "ghost"
-        element[idx] = full_list.element[ghosts.line]
-        line_wl[idx] = full_list.wavelength_nm[ghosts.line]
-        line_int[idx] = full_list.intensity[ghosts.line]
-        verified[idx] = full_list.verified[ghosts.line]
-    # unidentified peaks at a line of a possible extra element (never evidence, never fitted)
-    rest = np.flatnonzero(ident == "unidentified")
-    if rest.size and extra_list is not None and len(extra_list):
-        found = associate(model, x[rest], extra_list.wavelength_nm, max(0.5, 0.3 * fwhm))
+    def name_rest(label: str, rest_model: GratingModel, candidates: LineList) -> None:
+        """Name still unidentified peaks that sit at a line of ``candidates`` under
+        ``rest_model`` (never fitted, never evidence)."""
+        rest = np.flatnonzero(ident == "unidentified")
+        if not rest.size or not len(candidates):
+            return
+        found = associate(rest_model, x[rest], candidates.wavelength_nm, max(0.5, 0.3 * fwhm))
         idx = rest[found.peak]
-        ident[idx] = "extra"
-        element[idx] = extra_list.element[found.line]
-        line_wl[idx] = extra_list.wavelength_nm[found.line]
-        line_int[idx] = extra_list.intensity[found.line]
-        verified[idx] = extra_list.verified[found.line]
+        ident[idx] = label
+        element[idx] = candidates.element[found.line]
+        line_wl[idx] = candidates.wavelength_nm[found.line]
+        line_int[idx] = candidates.intensity[found.line]
+        verified[idx] = candidates.verified[found.line]
+
+    # where a listed line would appear in twice the order, then a possible extra element's line
+    name_rest("ghost", model.with_parameters(order=2 * model.order), full_list)
+    if extra_list is not None:
+        name_rest("extra", model, extra_list)
     fit_wl = model.wavelength(x)
     residual_px = np.full(n, np.nan)
     first_order = np.isin(ident, ["used", "rejected", "unconfirmed"])
