@@ -216,12 +216,39 @@ def tilted_arc(tmp_path_factory):
     return sim, solution, solution.write(folder / "tilted.solution.json"), frame
 
 
-def isolated_bright_lines(sim, min_snr=100.0, clear_px=8.0):
-    """Listed first-order lines, unsaturated, with no other simulated line within ``clear_px``."""
-    lines = sim.lines[sim.lines["listed"] & ~sim.lines["ghost"] & ~sim.lines["saturated"]
-                      & (sim.lines["snr"] > min_snr)]
-    others = sim.lines["x_true"].to_numpy()
-    keep = [np.sum(np.abs(others - x) < clear_px) == 1 for x in lines["x_true"]]
+#: The centroid measurement of the straightening test reads a core of +-4 px around a line and
+#: estimates the background as the median of the wings 7-15 px away on both sides.
+CORE_PX = 4
+WINGS_PX = (7, 15)
+#: A neighbour fainter than this fraction of a line's flux cannot spoil that line's centroid:
+#: wholly inside one wing (a peak of about a quarter of its flux per pixel, FWHM ~4 px) it lifts
+#: the median background by at most ~F_n/4, which moves a centroid taken over 9 core pixels
+#: at most ~0.5 px x 9 x (F_n/4) / F, about 1.1 x F_n/F px: 0.01 px, a tenth of the 0.1 px
+#: allowed; in the core its light moves the centroid by at most F_n/F x its distance (< 0.05 px).
+NEIGHBOUR_FRACTION = 0.01
+#: Light of a line's image beyond this many FWHM from its centre is negligible (the simulated
+#: profile is a slit image narrower than the FWHM blurred by a Gaussian: 2 FWHM >= 3.5 sigma past
+#: the slit edge, below 1e-3 of the peak).
+REACH_FWHM = 2.0
+
+
+def isolated_bright_lines(sim, min_snr=100.0):
+    """Listed first-order lines, unsaturated, whose centroid no other simulated line can bias.
+
+    A line is isolated when every other simulated line (listed or not, ghosts included) whose
+    light reaches the measurement window (within ``WINGS_PX[1]`` plus ``REACH_FWHM`` of its own
+    FWHM) is fainter than ``NEIGHBOUR_FRACTION`` of the line: both the distance and the
+    brightness of a neighbour decide, as a faint line 9 px away is harmless and a brighter one
+    biases the measured centroid by a third of a pixel (Ne 864.70 beside Ne 865.44 nm).
+    """
+    every = sim.lines
+    lines = every[every["listed"] & ~every["ghost"] & ~every["saturated"] & (every["snr"] > min_snr)]
+    x, flux = every["x_true"].to_numpy(), every["flux_e"].to_numpy()
+    reach = WINGS_PX[1] + REACH_FWHM * every["fwhm_px"].to_numpy()
+    keep = []
+    for index, line in lines.iterrows():
+        near = (np.abs(x - line["x_true"]) < reach) & (every.index != index)
+        keep.append(not np.any(near & (flux > NEIGHBOUR_FRACTION * line["flux_e"])))
     return lines[keep]
 
 
@@ -270,8 +297,9 @@ def test_tilted_arc_is_straightened_by_resampling(tilted_arc, tmp_path):
     assert len(lines) >= 5
 
     def centroids(image, centre, coords):
-        core = np.arange(centre - 4, centre + 5)
-        wings = np.r_[centre - 15:centre - 6, centre + 7:centre + 16]
+        core = np.arange(centre - CORE_PX, centre + CORE_PX + 1)
+        near, far = WINGS_PX
+        wings = np.r_[centre - far:centre - near + 1, centre + near:centre + far + 1]
         seg = image[rows][:, core] - np.median(image[rows][:, wings], axis=1, keepdims=True)
         c = (seg * coords[core]).sum(axis=1) / seg.sum(axis=1)
         return np.median(c[:third]), np.median(c[-third:]), np.median(c)

@@ -18,6 +18,7 @@ import pytest
 from astropy.io import fits
 from astropy.wcs import WCS
 
+from wavecal.apply import FLAG_EXTRAPOLATED
 from wavecal.night import build_inventory, run_night
 from wavecal.night.synthetic import make_night
 
@@ -114,12 +115,20 @@ def test_calibrated_science_wcs_matches_the_truth(result, night):
         assert "between" in rows.loc[name, "solution_used"]  # interpolated: drift is large
         lam, header = wcs_wavelength_nm(result.out_dir / rows.loc[name, "product"])
         sim = night.truth[name]
-        x0 = int(header.get("WCORIG1", 0)) if "WCORIG1" in header else 0
+        # raw column of the product's first column: the keyword apply writes (WCORIGX)
+        x = np.arange(lam.shape[1], dtype=float) + header["WCORIGX"]
         rows_lit = np.arange(*sim.slit_rows)
-        x = np.arange(lam.shape[1], dtype=float) + x0
         truth = sim.true_wavelength(x)
+        # every lit pixel, extrapolated ones included: make_night chooses settings whose lamp
+        # lines reach close to both ends of the detector, so the solutions extrapolate over
+        # less than a tenth of it at either end and the whole detector is held to the 0.1 px
         err = np.abs(lam[rows_lit] - truth) / np.abs(sim.truth.dispersion(x))
         assert np.max(err) < 0.1, (name, np.max(err))
+        # the pixels beyond the lines' range are those flagged as extrapolated
+        with fits.open(result.out_dir / rows.loc[name, "product"]) as hdul:
+            flags = hdul["FLAGS"].data[rows_lit] & FLAG_EXTRAPOLATED > 0
+        outside = (x < header["WCCOVLO"]) | (x > header["WCCOVHI"])
+        np.testing.assert_array_equal(flags, np.broadcast_to(outside, flags.shape), err_msg=name)
 
 
 def test_rerun_is_up_to_date_and_redo_remakes(result, night):

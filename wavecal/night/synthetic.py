@@ -53,9 +53,10 @@ class SyntheticNight:
 def make_night(root: str | Path, *, seed: int = 7, n_arcs: int = 4, n_science: int = 3,
                n_bias: int = 3, n_flats: int = 1, drift_px_per_hour: float = 0.8,
                bad_files: bool = True) -> SyntheticNight:
-    """Write a synthetic night into ``root``: two configurations (central wavelengths 520 and
-    760 nm), each with ``n_arcs`` arcs and ``n_science`` science frames spread over a night
-    whose lines drift by ``drift_px_per_hour`` (camera-axis pixel moving linearly in time)."""
+    """Write a synthetic night into ``root``: two configurations (nominal central wavelengths
+    600 and 810 nm), each with ``n_arcs`` arcs and ``n_science`` science frames spread over a
+    night whose lines drift by ``drift_px_per_hour`` (camera-axis pixel moving linearly in
+    time)."""
     root = Path(root)
     root.mkdir(parents=True, exist_ok=True)
     profile = night_profile()
@@ -63,7 +64,15 @@ def make_night(root: str | Path, *, seed: int = 7, n_arcs: int = 4, n_science: i
     start = Time("2025-03-14T19:00:00", scale="utc")
     kinds, truth, config, bad = {}, {}, {}, {}
     n = 0
-    for c, centre in enumerate((520.0, 760.0)):
+    # Settings an observer would choose for an Hg+Ar lamp: its lines reach close to both ends of
+    # the detector, so each solution is measured, not extrapolated, over nearly all of it. With
+    # the default seed the true ranges are about 530-727 nm (listed lines from Hg 546.07 to
+    # Ar I 714.70 nm, within ~90 px of either end; the Ar II lines, 413-502 nm, whose strengths
+    # on the Ar I scale rest on one bridge line and two unconfirmed ASD values, stay off the
+    # detector) and 672-869 nm (Ar I 675.28 to 866.79 nm, within ~15 px of either end). At 520
+    # nm the listed lines stopped at Hg 579.07 nm, a third of the detector short of its red
+    # end; at 760 nm they began ~95 px after its blue end.
+    for c, centre in enumerate((600.0, 810.0)):
         hours = np.sort(np.concatenate([np.linspace(0.0, 8.0, n_arcs),
                                         rng.uniform(0.3, 7.7, n_science)]))
         is_arc = np.isin(hours, np.linspace(0.0, 8.0, n_arcs))
