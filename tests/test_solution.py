@@ -56,8 +56,11 @@ def test_lines_table_has_residuals_in_three_units(solved):
     assert len(used) == solution.statistics["n_used"]
     c_kms = 299792.458  # speed of light, exact by SI definition
     assert np.allclose(used["residual_kms"], used["residual_nm"] / used["line_wavelength"] * c_kms)
-    rms = np.sqrt(np.mean(used["residual_px"] ** 2))
+    # the RMS is weighted by each line's total uncertainty in the fit (column sigma_px)
+    weight = 1.0 / used["sigma_px"] ** 2
+    rms = np.sqrt(np.sum(weight * used["residual_px"] ** 2) / np.sum(weight))
     assert rms == pytest.approx(solution.rms_px, rel=0.05)
+    assert (used["sigma_px"] >= used["x_err"]).all()
 
 
 def test_bad_solution_files_are_refused_with_the_file_named(tmp_path):

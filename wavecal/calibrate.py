@@ -299,6 +299,7 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
 
     lines_df = _line_table(table, model, lines, full_list, extra_list, pairs_peak, pairs_line, fit.used,
                            unconfirmed, fwhm)
+    lines_df.loc[pairs_peak, "sigma_px"] = fit.sigma_px
     used_lam = lam[pairs_line[fit.used]]
     offset_nm = model.wavelength(x[used_peaks]) - used_lam
     weight = 1.0 / fit.sigma_px[fit.used] ** 2  # as in FitResult.rms_px
@@ -407,6 +408,7 @@ def _line_table(table: pd.DataFrame, model: GratingModel, lines: LineList, full_
     out["residual_px"] = residual_px
     out["residual_nm"] = residual_nm
     out["residual_kms"] = residual_nm / line_wl * SPEED_OF_LIGHT_KMS
+    out["sigma_px"] = np.nan
     return out
 
 
@@ -417,7 +419,7 @@ def _failed(profile, frame, lamps, table: pd.DataFrame, reasons) -> Solution:
         "snr": table["snr"].to_numpy(float), "flags": table["flags"].to_numpy(int),
         "identification": "unidentified", "element": "", "line_wavelength": np.nan,
         "line_intensity": np.nan, "line_verified": False, "wavelength_fit": np.nan,
-        "residual_px": np.nan, "residual_nm": np.nan, "residual_kms": np.nan,
+        "residual_px": np.nan, "residual_nm": np.nan, "residual_kms": np.nan, "sigma_px": np.nan,
     })
     return Solution(status="failed", reasons=tuple(reasons), medium=profile.medium, model=None,
                     lines=lines, statistics={"n_peaks": int(len(table)), "n_used": 0},

@@ -62,7 +62,7 @@ SPEED_OF_LIGHT_KMS = 299792.458
 LINE_COLUMNS = (
     "x", "x_err", "fwhm", "flux", "snr", "flags",
     "identification", "element", "line_wavelength", "line_intensity", "line_verified",
-    "wavelength_fit", "residual_px", "residual_nm", "residual_kms",
+    "wavelength_fit", "residual_px", "residual_nm", "residual_kms", "sigma_px",
 )
 
 
@@ -302,9 +302,11 @@ def _jsonable(value: Any) -> Any:
     return value
 
 
+#: Line columns that files written by earlier versions lack (read as empty).
+_NEWER_LINE_COLUMNS = ("sigma_px",)
 _FLOAT_LINE_COLUMNS = frozenset(("x", "x_err", "fwhm", "flux", "snr", "line_wavelength",
                                  "line_intensity", "wavelength_fit", "residual_px", "residual_nm",
-                                 "residual_kms"))
+                                 "residual_kms", "sigma_px"))
 
 _NUMBER_OR_NULL = Optional(Real())
 _POSITIVE = Real(low=0, open_low=True)
@@ -361,7 +363,8 @@ def _checked(data: Any, path: Path) -> dict[str, Any]:
         msg = f"{path}: status {data['status']!r} but no model (only a failed solution has none)"
         raise SolutionFileError(msg)
     lines = check_table(data["lines"], {c: Sequence(_LINE_RULES[c]) for c in LINE_COLUMNS},
-                        where=f"{where} lines", error=SolutionFileError, required=LINE_COLUMNS)
+                        where=f"{where} lines", error=SolutionFileError,
+                        required=tuple(c for c in LINE_COLUMNS if c not in _NEWER_LINE_COLUMNS))
     if len({len(v) for v in lines.values()}) > 1:
         msg = f"{path}: lines columns differ in length ({sorted({len(v) for v in lines.values()})})"
         raise SolutionFileError(msg)
@@ -419,7 +422,9 @@ def load_solution(path: str | Path) -> Solution:
             fields = dict(data["model"])
             fields["distortion"] = tuple(fields.get("distortion", ()))
             model = GratingModel(**fields)
-        lines = pd.DataFrame({col: (np.array(data["lines"][col], dtype=float)  # None -> NaN
+        n_lines = len(data["lines"]["x"])
+        lines = pd.DataFrame({col: (np.array(data["lines"].get(col, [None] * n_lines),
+                                             dtype=float)  # None -> NaN
                                     if col in _FLOAT_LINE_COLUMNS else list(data["lines"][col]))
                               for col in LINE_COLUMNS})
         cov = data.get("covariance")
