@@ -31,7 +31,7 @@ from .slit import SlitMeasurement, SlitShift, measure_slit, profile_slit_rows
 from .solution import SPEED_OF_LIGHT_KMS, Solution
 from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 
-__all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS", "LINE_UNCERTAINTY_VERIFIED_NM",
+__all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS", "ANCHOR_SIGMA_PX", "LINE_UNCERTAINTY_VERIFIED_NM",
            "LINE_UNCERTAINTY_UNVERIFIED_NM"]
 
 #: Leave-one-out residual (pixels) below which a used line counts as confirmed by the others
@@ -42,6 +42,11 @@ _MAX_UNCONFIRMED = 4
 
 #: Smallest window (pixels) assumed for chance coincidences in the significance test.
 _MIN_CHANCE_WINDOW_PX = 0.1
+
+#: A used line marks an end of the range the solution covers only if its total uncertainty in
+#: the fit is at most this (pixels): the scale on which a solution is right or wrong (a quarter
+#: pixel; common practice). Beyond the outermost such lines the solution extrapolates.
+ANCHOR_SIGMA_PX = 0.25
 
 #: Elements many small lamps show besides their own (hydrogen from water in the tube): their
 #: lines may name peaks that nothing else explains, but never count as evidence and are never
@@ -289,7 +294,10 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
     priors = box.as_dict()
     shifts = {n: (getattr(model, n) - priors[n][0]) / priors[n][1] for n in PHYSICAL_PARAMETERS}
     runner = ident.runner_up
-    used_x = x[used_peaks]
+    # the range the solution covers: between the outermost used lines precise enough to hold
+    # it there (a line known only to a pixel or two at the end of the range vouches for nothing)
+    anchoring = fit.used & (fit.sigma_px <= ANCHOR_SIGMA_PX)
+    used_x = x[pairs_peak[anchoring]] if np.any(anchoring) else x[used_peaks]
     evidence = _evidence(fit, model, used_x)
     verdict = judge(VerdictInputs(
         n_used=fit.n_used, log10_chance=log10_chance, log10_trials=ident.log10_trials,
