@@ -43,6 +43,11 @@ _MAX_UNCONFIRMED = 4
 #: Smallest window (pixels) assumed for chance coincidences in the significance test.
 _MIN_CHANCE_WINDOW_PX = 0.1
 
+#: Fraction of its width by which the centre of a line fitted jointly with a close neighbour
+#: is uncertain beyond its statistical error (profile mismatch in deblending, unseen faint
+#: companions; common practice puts such errors at about a tenth of the width).
+BLEND_CENTRE_FRACTION = 0.1
+
 #: A used line marks an end of the range the solution covers only if its total uncertainty in
 #: the fit is at most this (pixels): the scale on which a solution is right or wrong (a quarter
 #: pixel; common practice). Beyond the outermost such lines the solution extrapolates.
@@ -154,7 +159,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     table = _detections(peaks.table, min_snr, nominal.n_pixels)
     x = table["x"].to_numpy(float)
     fwhm = float(peaks.fwhm_typical) if np.isfinite(peaks.fwhm_typical) else 3.0
-    features = resolve_lines(line_list.in_range(lo, hi), nominal, peaks.fwhm_at)
+    in_range = line_list.in_range(lo, hi)
+    features = resolve_lines(in_range, nominal, peaks.fwhm_at)
     ident = identify_lines(nominal, box, x, features.lines.wavelength_nm,
                            intensity=features.lines.intensity,
                            vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
@@ -162,6 +168,9 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     if ident.best is None:
         solution = _failed(profile, frame, lamps, table, ident.notes or ("no identification",))
     else:
+        # the identified model places every listed line far better than the nominal one:
+        # resolve the list again where its lines really fall
+        features = resolve_lines(in_range, ident.best.model, peaks.fwhm_at)
         solution, fit = _fit_and_judge(profile, frame, lamps, table, features, line_list,
                                        extra_list, ident, box, fwhm, free_grooves,
                                        slit.shift if slit is not None else None)
@@ -198,16 +207,21 @@ def _line_sigma(features: ResolvedLines) -> np.ndarray:
 
 
 def _centre_sigma(table: pd.DataFrame, fwhm: float) -> np.ndarray:
-    """Peak-centre uncertainties, with a poorly fitted peak kept but widened.
+    """Peak-centre uncertainties, with blended and poorly fitted peaks kept but widened.
 
     The peak finder already widens the ``x_err`` of a line wider than expected (a possible
-    blend); a peak that one profile does not fit is kept with its centre uncertain by a quarter
-    of its width, roughly how far an unseen companion could pull it.
+    blend). The centre of a line fitted jointly with a close neighbour also depends on how well
+    the assumed profile matches both, and a faint companion too close to be seen apart pulls it
+    unseen: such a centre is uncertain by :data:`BLEND_CENTRE_FRACTION` of its width. A peak
+    that one profile does not fit is uncertain by a quarter of its width.
     """
     x_err = table["x_err"].to_numpy(float)
     width = np.nan_to_num(table["fwhm"].to_numpy(float), nan=fwhm)
-    poor = np.where((table["flags"].to_numpy(int) & int(PeakFlag.POOR_FIT)) != 0, 0.25 * width, 0.0)
-    return np.maximum(np.hypot(np.nan_to_num(x_err, nan=fwhm), poor), 1e-4)
+    flags = table["flags"].to_numpy(int)
+    blended = np.where((flags & int(PeakFlag.BLENDED)) != 0, BLEND_CENTRE_FRACTION * width, 0.0)
+    poor = np.where((flags & int(PeakFlag.POOR_FIT)) != 0, 0.25 * width, 0.0)
+    sigma = np.sqrt(np.nan_to_num(x_err, nan=fwhm) ** 2 + blended**2 + poor**2)
+    return np.maximum(sigma, 1e-4)
 
 
 def _converge(model, box, x, x_err, lam, lam_err, assoc, tolerance, fwhm, free_grooves,
@@ -272,9 +286,11 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
     x_err = _centre_sigma(table, fwhm)
     lam = lines.wavelength_nm
     lam_err = _line_sigma(features)
+    start = associate(ident.best.model, x, lam, ident.best.tolerance_px,
+                      blend_px=blend_distance_px(fwhm), intensity=lines.intensity)
     fit, fitted, tolerance = _converge(
-        ident.best.model, box, x, x_err, lam, lam_err, ident.best.association,
-        ident.best.tolerance_px, fwhm, free_grooves, lines.intensity)
+        ident.best.model, box, x, x_err, lam, lam_err, start, ident.best.tolerance_px, fwhm,
+        free_grooves, lines.intensity)
     if fit is None:
         return _failed(profile, frame, lamps, table, ("too few lines identified",)), None
     crowded = fitted.crowded
