@@ -29,10 +29,13 @@ else:  # Python 3.10
 
 from wavecal.calibrate import calibrate_frame
 from wavecal.errors import ProfileError
+from wavecal.extract import extract_spectrum
 from wavecal.frames import frame_from_array
+from wavecal.peaks import PeakFlag, find_peaks
 from wavecal.profile import load_profile, profile_from_dict
 from wavecal.simulate import simulate_arc
-from wavecal.slit import MIN_SLIT_ROWS, SlitShift, fit_slit_shift, trace_lines
+from wavecal.slit import (DOMINANCE, MIN_SLIT_ROWS, SlitShift, fit_slit_shift, measure_slit,
+                          trace_lines)
 from wavecal.solution import SCHEMA_VERSION, load_solution
 
 #: The issue's target: RMS error over the whole illuminated slit (pixels).
@@ -166,6 +169,68 @@ def test_whole_slit_error_meets_the_target(profile_name, seed, tilt, curvature):
     assert np.sqrt(np.mean(error ** 2)) <= SLIT_TARGET_PX
 
 
+def _tall_slit_profile():
+    """An invented Tamsin Hill spectrograph with a 1000-row detector and a tall slit."""
+    return profile_from_dict({
+        "instrument": {"name": "THO tall-slit test", "medium": "air", "lamps": ["Ne"]},
+        "grating": {"mount": "reflection", "grooves_per_mm": 600.0, "deviation_deg": 30.0},
+        "camera": {"focal_length_mm": 120.0},
+        "detector": {"pixel_size_um": 13.5, "shape": [1000, 1024], "dispersion_axis": 1,
+                     "wavelength_increases": 1, "saturation_adu": 65000.0,
+                     "gain_e_per_adu": 1.0, "read_noise_e": 3.0, "bias_adu": 300.0},
+        "header": {"grating_angle": {"keyword": "GRTANGLE"}, "lamps": {"keyword": "ARCLAMPS"}},
+    }, source="tall-slit test profile")
+
+
+@pytest.mark.parametrize(("seed", "lamps"), [(1, "Ne"), (4, "NeAr")])
+def test_tall_slit_on_a_rotated_detector(seed, lamps):
+    # Issue 12's hard case: a slit of several hundred rows on a 1000-row detector rotated by
+    # 1 degree, so that every line is tilted by 1 degree (plane rotation; common practice).
+    profile = _tall_slit_profile()
+    sim = simulate_arc(profile, seed=seed, lamps=lamps, detector_rotation_deg=1.0)
+    assert sim.slit_rows[1] - sim.slit_rows[0] > 500
+    solution = solve(sim)
+    assert solution.status != "failed" and solution.slit is not None
+    assert np.sqrt(np.mean(slit_errors(solution, sim) ** 2)) <= SLIT_TARGET_PX
+    # the tilt is seen: tan(1 deg) pixels per row at the slit centre, within 2 %
+    slit = solution.slit
+    middle = np.mean(solution.covered_range_px)
+    step = slit.shift(middle, slit.reference_row + 100.0) - slit.shift(middle, slit.reference_row)
+    assert step / 100.0 == pytest.approx(np.tan(np.radians(1.0)), rel=0.02)
+
+
+def test_dense_blended_lines_are_still_traced():
+    # Issue 13's tall slit with tilted lines and a dense list: wide lines (12 px FWHM), Ar II
+    # and unlisted lines, so that nearly every bright peak of a band of rows is a blend. The
+    # blends that one line dominates are followed; the shift found is the simulated one, and
+    # the straightened frame has lines as narrow as a band's, not smeared as in the plain sum.
+    profile = _tall_slit_profile()
+    sim = simulate_arc(profile, seed=4, lamps="NeAr", line_tilt_deg=3.0, line_curvature_px=2.0,
+                       fwhm_px=12.0, ion_lines=2.0, unlisted_fraction=0.7,
+                       unlisted_strength=1.0, peak_snr=400.0)
+    frame = frame_from_array(sim.data, profile, header=sim.header)
+    spectrum = extract_spectrum(frame)
+    middle = sum(sim.slit_rows) // 2
+    band = find_peaks(extract_spectrum(frame, rows=(middle - 16, middle + 16))).table
+    bright = band[band["snr"] >= 10]
+    assert np.mean((bright["flags"].to_numpy() & int(PeakFlag.BLENDED)) > 0) > 0.8
+    summed = find_peaks(spectrum)
+    measured = measure_slit(frame, spectrum, summed)
+    shift = measured.shift
+    assert shift is not None and measured.straightened
+    # the true shift of the line seen at x on the fitted reference row
+    x = np.linspace(20.0, 1003.0, 50)[np.newaxis, :]
+    y = np.arange(*sim.slit_rows, dtype=float)[:, np.newaxis]
+    start = x.copy()
+    for _ in range(6):
+        start = x - sim.true_shift(start, shift.reference_row)
+    error = shift.shift(x, y) - (start + sim.true_shift(start, y) - x)
+    assert np.sqrt(np.mean(error ** 2)) <= SLIT_TARGET_PX
+    width = float(np.median(sim.lines["fwhm_px"]))
+    assert summed.fwhm_typical > 1.5 * width
+    assert measured.peaks.fwhm_typical == pytest.approx(width, rel=0.15)
+
+
 def test_straight_slit_gives_no_shift(straight):
     sim, solution = straight
     slit = solution.slit
@@ -294,6 +359,23 @@ def test_tracing_can_be_switched_off(straight):
     assert solution.slit is None
     x = np.array([100.0, 3000.0])
     np.testing.assert_array_equal(solution.wavelength(x, 0.0), solution.wavelength(x))
+
+
+def test_a_line_is_traced_beside_a_faint_neighbour_only():
+    # A close neighbour keeps a line from being traced unless the line dominates it.
+    profile = load_profile("tho_grism")
+    sim = simulate_arc(profile, seed=11, line_tilt_deg=2.0, hot_pixels=0)
+    frame = frame_from_array(sim.data, profile, header=sim.header)
+    lines = sim.lines[~sim.lines["saturated"]]
+    line = float(lines["x_true"].to_numpy()[np.argmax(lines["flux_e"].to_numpy())])
+    options = {"rows": sim.slit_rows, "fwhm": 3.0, "neighbours": [line + 4.0]}
+    faint = trace_lines(frame, [line], flux=[1.0], neighbour_flux=[DOMINANCE], **options)
+    assert faint.traced[0] and faint.good[0].sum() >= 0.9 * faint.y.size
+    bright = trace_lines(frame, [line], flux=[1.0], neighbour_flux=[1.5 * DOMINANCE], **options)
+    assert not bright.traced[0] and not bright.good.any()
+    assert not trace_lines(frame, [line], **options).traced[0]  # no fluxes: every one counts
+    with pytest.raises(ValueError, match="neighbour_flux has 2 values"):
+        trace_lines(frame, [line], flux=[1.0], neighbour_flux=[1.0, 2.0], **options)
 
 
 def test_trace_lines_refuses_too_few_rows():

@@ -482,7 +482,7 @@ def _fluxes(values, size: int, missing: float, name: str) -> np.ndarray:
         return np.full(size, missing)
     out = np.atleast_1d(np.asarray(values, dtype=float))
     if out.shape != (size,):
-        msg = f"{name} has {out.size} values for {size} positions"
+        msg = f"{name} has {out.size} values for {size} lines"
         raise ValueError(msg)
     return np.where(np.isfinite(out), out, missing)
 
