@@ -34,8 +34,8 @@ from wavecal.frames import frame_from_array
 from wavecal.peaks import PeakFlag, find_peaks
 from wavecal.profile import load_profile, profile_from_dict
 from wavecal.simulate import simulate_arc
-from wavecal.slit import (DOMINANCE, MIN_SLIT_ROWS, SlitShift, fit_slit_shift, measure_slit,
-                          trace_lines)
+from wavecal.slit import (DOMINANCE, MIN_SLIT_ROWS, LineTraces, SlitShift, fit_slit_shift,
+                          measure_slit, trace_lines)
 from wavecal.solution import SCHEMA_VERSION, load_solution
 
 #: The issue's target: RMS error over the whole illuminated slit (pixels).
@@ -376,6 +376,43 @@ def test_a_line_is_traced_beside_a_faint_neighbour_only():
     assert not trace_lines(frame, [line], **options).traced[0]  # no fluxes: every one counts
     with pytest.raises(ValueError, match="neighbour_flux has 2 values"):
         trace_lines(frame, [line], flux=[1.0], neighbour_flux=[1.0, 2.0], **options)
+
+
+def _synthetic_traces(rng, scatter):
+    """Band centres of seven lines following a known shift (tilt varying along x, curvature),
+    each line with its own scatter, all claiming 0.02 px uncertainty; and that shift."""
+    x0 = np.linspace(100.0, 1900.0, 7)
+    y = np.linspace(10.0, 390.0, 24)
+
+    def truth(x, rows):
+        u, t = (2.0 * x - 2047.0) / 2047.0, (rows - 200.0) / 190.0
+        return (3.0 + u) * t + 0.5 * t ** 2
+
+    x = x0[:, None] + truth(x0[:, None], y) + scatter[:, None] * rng.standard_normal((7, 24))
+    traces = LineTraces(x_start=x0, traced=np.ones(7, bool), y=y,
+                        band_edges=np.stack([y - 7, y + 7], axis=1).astype(int), x=x,
+                        x_err=np.full_like(x, 0.02), good=np.ones_like(x, bool),
+                        reference_row=200.0, rows=(3, 397), row_weight=np.ones(395),
+                        x_domain=(0.0, 2047.0), fwhm=3.0)
+    return traces, truth
+
+
+def test_lines_scattering_more_than_they_claim_weigh_less():
+    # Four of seven lines scatter by 0.15 px about the shift while claiming 0.02 px (as blends
+    # or faint lines may); the other three scatter as they claim. Weighted by their own
+    # scatter, the model is nearly as good as one fitted to the three good lines alone (with
+    # equal weights it is about three times worse on these draws).
+    rng = np.random.default_rng(0)
+    scatter = np.array([0.15, 0.02, 0.15, 0.02, 0.15, 0.02, 0.15])
+    x = np.linspace(0.0, 2047.0, 30)[np.newaxis, :]
+    rows = np.linspace(3.0, 397.0, 40)[:, np.newaxis]
+    errors, alone = [], []
+    for _ in range(6):
+        traces, truth = _synthetic_traces(rng, scatter)
+        errors.append(fit_slit_shift(traces).shift(x, rows) - truth(x, rows))
+        good_only = dataclasses.replace(traces, good=traces.good & (scatter < 0.1)[:, None])
+        alone.append(fit_slit_shift(good_only).shift(x, rows) - truth(x, rows))
+    assert np.sqrt(np.mean(np.square(errors))) < 1.5 * np.sqrt(np.mean(np.square(alone)))
 
 
 def test_trace_lines_refuses_too_few_rows():

@@ -37,9 +37,11 @@ Method
    polynomials, ``u`` the pixel ``x`` scaled to [-1, 1] over the detector and
    ``t = (y - y_ref) / h``, ``h`` half the traced rows. It is fitted jointly with every line's
    reference-row position by weighted linear least squares (a floor of 0.01 px is added to
-   each centre's uncertainty), rejecting points beyond four robust standard deviations. The
-   degrees, ``p`` from 0 to 2 and ``q`` from 0 (no shift at all) to 3, minimise the Bayesian
-   information criterion ``n ln(χ²/n) + k ln n``; of models within 2 of the minimum the one
+   each centre's uncertainty), rejecting points beyond four robust standard deviations. Then
+   each line's uncertainties are scaled up by its own scatter about the richest model, when
+   larger than they say (a blend or a faint line weighs as it deserves). The degrees, ``p``
+   from 0 to 2 and ``q`` from 0 (no shift at all) to 3, minimise the Bayesian information
+   criterion ``n ln(χ²/n) + k ln n``; of models within 2 of the minimum the one
    with fewest parameters is taken.
 """
 from __future__ import annotations
@@ -914,6 +916,7 @@ def fit_slit_shift(traces: LineTraces, *, max_degree_x: int = _MAX_DEGREE_X,
             break
         keep = new
     dx_max, dy_max = limits(keep)
+    sigma = _with_line_scatter(line_id, sigma, fit.residual, keep, n_lines)
     n = int(keep.sum())
     n_used_lines = int(np.unique(line_id[keep]).size)
     candidates = []
@@ -939,6 +942,17 @@ def fit_slit_shift(traces: LineTraces, *, max_degree_x: int = _MAX_DEGREE_X,
     return SlitShift(reference_row=reference, y_scale=half, x_domain=domain,
                      coefficients=coefficients, rows_covered=covered, rms_px=rms,
                      n_lines=n_used_lines, n_points=n, n_rejected=int(x.size - n))
+
+
+def _with_line_scatter(line_id, sigma, residual, keep, n_lines: int) -> np.ndarray:
+    """Uncertainties of each line's band centres scaled up by the line's own scatter about the
+    model, when larger than its noise says (``sqrt`` of its reduced chi-square): a blend or a
+    faint line measured less well than its noise model claims then weighs as it deserves."""
+    z2 = np.where(keep, (residual / sigma) ** 2, 0.0)
+    count = np.bincount(line_id[keep], minlength=n_lines).astype(float)
+    dof = np.maximum(count - 1.0, 1.0)  # each line has its reference position
+    scale = np.sqrt(np.maximum(np.bincount(line_id, z2, n_lines) / dof, 1.0))
+    return sigma * scale[line_id]
 
 
 # ------------------------------------------------------------------------------------------------
