@@ -449,3 +449,25 @@ def test_profile_refuses_bad_slit_rows(value, message):
     data["detector"]["slit_rows"] = value
     with pytest.raises(ProfileError, match=message):
         profile_from_dict(data, source="test.toml")
+
+
+def test_the_shift_uncertainty_matches_the_scatter_of_refits():
+    # the propagated 1-sigma uncertainty of the shift (coefficient covariance) against the
+    # spread of the shift over many noise draws of the same slit (Monte Carlo: the outside
+    # check of a linear least-squares covariance)
+    rng = np.random.default_rng(11)
+    scatter = np.full(7, 0.05)
+    x = np.array([100.0, 1000.0, 1900.0])
+    rows = np.array([3.0, 100.0, 397.0])
+    shifts, predicted = [], None
+    for _ in range(200):
+        traces, truth = _synthetic_traces(rng, scatter)
+        model = fit_slit_shift(traces)
+        if model.degree_x != 1 or model.degree_y != 2:  # keep one model form, as the formula
+            continue
+        shifts.append(model.shift(x[np.newaxis, :], rows[:, np.newaxis]) - truth(
+            x[np.newaxis, :], rows[:, np.newaxis]))
+        predicted = model.shift_sigma_grid(x, rows)
+    spread = np.std(np.array(shifts), axis=0)
+    assert len(shifts) > 50
+    np.testing.assert_allclose(predicted, spread, rtol=0.35, atol=2e-3)

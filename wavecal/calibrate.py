@@ -314,7 +314,7 @@ def _fit_and_judge(profile, frame, lamps, table, features: ResolvedLines, full_l
     # it there (a line known only to a pixel or two at the end of the range vouches for nothing)
     anchoring = fit.used & (fit.sigma_px <= ANCHOR_SIGMA_PX)
     used_x = x[pairs_peak[anchoring]] if np.any(anchoring) else x[used_peaks]
-    evidence = _evidence(fit, model, used_x)
+    evidence = _evidence(fit, model, used_x, slit)
     verdict = judge(VerdictInputs(
         n_used=fit.n_used, log10_chance=log10_chance, log10_trials=ident.log10_trials,
         fit_success=fit.success, scatter_px=fit.scatter_px, fwhm_px=fwhm,
@@ -363,14 +363,20 @@ def _weighted_rms(values: np.ndarray, weight: np.ndarray) -> float:
     return float(np.sqrt(np.sum(weight * values**2) / np.sum(weight))) if values.size else math.nan
 
 
-def _evidence(fit: FitResult, model: GratingModel, used_x: np.ndarray) -> dict[str, float]:
-    """Uncertainty and stability of the solution between the outermost lines used."""
+def _evidence(fit: FitResult, model: GratingModel, used_x: np.ndarray,
+              slit: SlitShift | None) -> dict[str, float]:
+    """Uncertainty and stability of the solution between the outermost lines used; on a long
+    slit the uncertainty includes that of the shift along the slit, over the traced rows."""
     if used_x.size == 0:
         return {"max_sigma_px": math.nan, "max_sigma_at_px": math.nan,
                 "leave_one_out_px": math.nan, "leave_one_out_at_px": math.nan,
                 "largest_gap_fraction": 1.0}
     grid = np.linspace(used_x.min(), used_x.max(), 65)
     sigma_px = wavelength_sigma(model, fit.names, fit.covariance, grid) / np.abs(model.dispersion(grid))
+    if slit is not None:
+        rows = np.linspace(slit.rows_covered[0], slit.rows_covered[1], 17)
+        along = np.nanmax(slit.shift_sigma_grid(grid, rows), axis=0, initial=0.0)
+        sigma_px = np.hypot(sigma_px, along)
     shift = fit.leave_one_out_shift_px(grid)
     worst = int(np.nanargmax(np.where(np.isfinite(shift), shift, -1.0)))
     top = int(np.nanargmax(np.where(np.isfinite(sigma_px), sigma_px, -1.0)))

@@ -201,6 +201,9 @@ class SlitShift:
         RMS of the accepted band centres about the model (pixels).
     n_lines, n_points, n_rejected : int
         Lines and band centres used, and band centres rejected as outliers.
+    covariance : ndarray or None
+        Covariance of the coefficients (flattened row by row), scaled up by the reduced
+        chi-square when it exceeds one; None for a model read from a file (not stored).
     """
 
     reference_row: float
@@ -212,6 +215,7 @@ class SlitShift:
     n_lines: int = 0
     n_points: int = 0
     n_rejected: int = 0
+    covariance: np.ndarray | None = None
 
     @property
     def degree_x(self) -> int:
@@ -247,6 +251,20 @@ class SlitShift:
         for k in range(self.degree_x + 1):
             out += along_y[..., k] * along_x[..., k]
         return out
+
+    def shift_sigma_grid(self, x, y) -> np.ndarray:
+        """1-sigma uncertainty of ``Δ`` on the grid of the 1-D arrays ``x`` and ``y`` (shape
+        ``(len(y), len(x))``), propagated from the coefficients' covariance; NaN when the model
+        carries none (read from a file). Zero on the reference row, where ``Δ`` is zero."""
+        x, y = np.atleast_1d(np.asarray(x, dtype=float)), np.atleast_1d(np.asarray(y, dtype=float))
+        if self.degree_y == 0:
+            return np.zeros((y.size, x.size))
+        if self.covariance is None:
+            return np.full((y.size, x.size), np.nan)
+        along_x = legendre.legvander(self._u(x), self.degree_x)  # (nx, dx + 1)
+        along_y = self._t_powers(y)  # (ny, dy)
+        g = (along_x[None, :, :, None] * along_y[:, None, None, :]).reshape(y.size, x.size, -1)
+        return np.sqrt(np.clip(np.einsum("yxi,ij,yxj->yx", g, self.covariance, g), 0.0, None))
 
     def shift_grid(self, x, y) -> np.ndarray:
         """``Δ`` on the grid of the 1-D arrays ``x`` and ``y``: shape ``(len(y), len(x))``."""
@@ -829,6 +847,7 @@ class _ModelFit:
     reference: np.ndarray
     residual: np.ndarray
     chi2: float
+    covariance: np.ndarray
 
 
 def _fit_model(line_id, x, sigma, t, start, domain, degree_x, degree_y, n_lines,
@@ -856,17 +875,22 @@ def _fit_model(line_id, x, sigma, t, start, domain, degree_x, degree_y, n_lines,
         b_mean = np.stack([np.bincount(line_id, w * col, n_lines) for col in basis.T],
                           axis=1) / safe[:, None] if basis.shape[1] else np.zeros((n_lines, 0))
         root = np.sqrt(w)
+        design = (basis - b_mean[line_id]) * root[:, None]
         if basis.shape[1]:
-            solution = np.linalg.lstsq((basis - b_mean[line_id]) * root[:, None],
-                                       (x - x_mean[line_id]) * root, rcond=None)[0]
+            solution = np.linalg.lstsq(design, (x - x_mean[line_id]) * root, rcond=None)[0]
         else:
             solution = np.zeros(0)
         coef = solution.reshape(degree_x + 1, degree_y)
         reference = np.where(has, x_mean - b_mean @ solution, start)
     model = reference[line_id] + basis @ solution
     residual = x - model
+    chi2 = float(np.sum(w * residual ** 2))
+    # coefficient covariance, scaled up by the reduced chi-square when the scatter exceeds the
+    # stated uncertainties (each used line also spends one degree of freedom on its reference)
+    dof = max(int(np.count_nonzero(w > 0)) - solution.size - int(np.count_nonzero(has)), 1)
+    covariance = np.linalg.pinv(design.T @ design) * max(chi2 / dof, 1.0)
     return _ModelFit(coefficients=coef, reference=np.where(has, reference, np.nan),
-                     residual=residual, chi2=float(np.sum(w * residual ** 2)))
+                     residual=residual, chi2=chi2, covariance=covariance)
 
 
 def fit_slit_shift(traces: LineTraces, *, max_degree_x: int = _MAX_DEGREE_X,
@@ -941,7 +965,8 @@ def fit_slit_shift(traces: LineTraces, *, max_degree_x: int = _MAX_DEGREE_X,
     rms = float(np.sqrt(np.mean(fit.residual[keep] ** 2)))
     return SlitShift(reference_row=reference, y_scale=half, x_domain=domain,
                      coefficients=coefficients, rows_covered=covered, rms_px=rms,
-                     n_lines=n_used_lines, n_points=n, n_rejected=int(x.size - n))
+                     n_lines=n_used_lines, n_points=n, n_rejected=int(x.size - n),
+                     covariance=fit.covariance)
 
 
 def _with_line_scatter(line_id, sigma, residual, keep, n_lines: int) -> np.ndarray:
