@@ -624,7 +624,9 @@ class _TraceState:
         if not measured.any():
             return np.ones(stop - start)
         flux = flux[measured]
-        flux = flux / np.nanmedian(flux, axis=1, keepdims=True)
+        median = np.nanmedian(flux, axis=1, keepdims=True)
+        # a line whose median row holds no light says nothing about the profile
+        flux = np.divide(flux, median, out=np.full(flux.shape, np.nan), where=median > 0)
         known = np.isfinite(flux).any(axis=0)
         profile = np.ones(stop - start)
         profile[known] = np.nanmedian(flux[:, known], axis=0)
