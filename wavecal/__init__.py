@@ -15,6 +15,8 @@ The names most users need are available here::
 """
 from importlib.metadata import PackageNotFoundError, version
 
+from ._lazy import lazy_attributes
+
 try:
     __version__ = version("wavecal")
 except PackageNotFoundError:  # running from a source tree that is not installed
@@ -27,17 +29,4 @@ __all__ = ["__version__", "calibrate_frame", "load_profile", "load_solution", "S
 _LAZY = {"calibrate_frame": "calibrate", "load_profile": "profile", "load_solution": "solution",
          "Solution": "solution"}
 
-
-def __getattr__(name: str):
-    if name in _LAZY:
-        from importlib import import_module
-
-        value = getattr(import_module(f".{_LAZY[name]}", __name__), name)
-        globals()[name] = value
-        return value
-    msg = f"module 'wavecal' has no attribute {name!r}"
-    raise AttributeError(msg)
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(__all__))
+__getattr__, __dir__ = lazy_attributes(__name__, _LAZY)
