@@ -13,14 +13,8 @@ The names most users need are available here::
     solution.write("arc.solution.json")
     same = wavecal.load_solution("arc.solution.json")
 """
-from importlib.metadata import PackageNotFoundError, version
-
 from ._lazy import lazy_attributes
-
-try:
-    __version__ = version("wavecal")
-except PackageNotFoundError:  # running from a source tree that is not installed
-    __version__ = "0.0.0+unknown"
+from ._version import __version__
 
 __all__ = ["__version__", "calibrate_frame", "load_profile", "load_solution", "Solution"]
 

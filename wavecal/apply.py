@@ -40,7 +40,8 @@ import numpy as np
 from astropy.io import fits
 from astropy.time import Time
 
-from . import __version__
+from ._stems import file_stem
+from ._version import __version__
 from ._atomic import atomic_path
 from .errors import FrameError, SolutionFileError, WavecalError
 from .frames import image_hdu_index
@@ -52,7 +53,8 @@ from .resample import (
     resample,
     user_grid,
 )
-from .solution import SPEED_OF_LIGHT_KMS, load_solution
+from .constants import SPEED_OF_LIGHT_KMS
+from .solution import load_solution
 from .validation import MAX_GRID_BINS, Integer, Real, option_type
 from .wcs import (
     AIRVAC_WAVECAL,
@@ -570,11 +572,7 @@ def output_path_for(frame: Path, out: Path, n_frames: int) -> Path:
     ``out/<frame name without .fits/.fz>.wcal.fits``."""
     if out.suffix.lower() in (".fits", ".fit", ".fts") and n_frames == 1:
         return out
-    name = frame.name
-    for suffix in (".fz", ".gz", ".fits", ".fit", ".fts"):
-        if name.lower().endswith(suffix):
-            name = name[: -len(suffix)]
-    return out / f"{name}.wcal.fits"
+    return out / f"{file_stem(frame)}.wcal.fits"
 
 
 # ------------------------------------------------------------------------------------------------

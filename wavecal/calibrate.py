@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import __version__
+from ._version import __version__
 from .extract import Spectrum, extract_spectrum
 from .features import ResolvedLines, resolve_lines
 from .fit import PHYSICAL_PARAMETERS, FitResult, fit_lines, wavelength_sigma
@@ -28,7 +28,8 @@ from .optics import GratingModel
 from .peaks import PeakFlag, PeakTable, find_peaks
 from .profile import InstrumentProfile
 from .slit import SlitMeasurement, SlitShift, measure_slit, profile_slit_rows
-from .solution import SPEED_OF_LIGHT_KMS, Solution
+from .constants import SPEED_OF_LIGHT_KMS
+from .solution import Solution
 from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 
 __all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS", "ANCHOR_SIGMA_PX", "LINE_UNCERTAINTY_VERIFIED_NM",

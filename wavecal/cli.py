@@ -155,7 +155,7 @@ def _parser(argv: list[str]) -> argparse.ArgumentParser:
 
 
 def _version() -> str:
-    from . import __version__
+    from ._version import __version__
 
     return __version__
 
@@ -195,10 +195,15 @@ def _solve_one(frame: Path, profile, args, out: Path):
     solution = calibration.solution
     elapsed = time.perf_counter() - start
     with_report = not getattr(args, "no_report", False)
-    # the report draws its own <stem>.residuals.png: do not draw it twice
-    products = write_products(solution, out, stem=frame.name,
-                              plot=not (getattr(args, "no_plot", False) or with_report))
-    report = None
+    products = write_products(solution, out, stem=frame.name)
+    report = plot = None
+    if not with_report and not getattr(args, "no_plot", False):
+        from ._atomic import atomic_write_bytes
+        from .report.figures import residuals_figure
+
+        plot = products.solution.with_name(
+            products.solution.name.removesuffix(".solution.json") + ".residuals.png")
+        atomic_write_bytes(plot, residuals_figure(solution).png())
     if with_report:
         from .report import save_spectrum, spectrum_path, write_frame_report
 
@@ -208,7 +213,7 @@ def _solve_one(frame: Path, profile, args, out: Path):
                                     stem=products.solution.name.removesuffix(".solution.json"))
     print(format_summary(solution))
     print(f"  written   : {products.solution}, {products.lines}"
-          + (f", {products.residual_plot}" if products.residual_plot else "")
+          + (f", {plot}" if plot is not None else "")
           + (f", {report.html}" if report is not None else "")
           + f"  ({elapsed:.2f} s)")
     print()

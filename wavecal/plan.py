@@ -40,6 +40,7 @@ import pandas as pd
 from scipy.optimize import brentq
 
 from ._atomic import atomic_write_text
+from ._json import jsonable
 from .errors import WavecalError
 from .linelists import available_elements, load_line_list
 from .model_setup import nominal_model, prior_box
@@ -122,7 +123,7 @@ class SamplePoint:
 
     def summary(self) -> dict:
         """JSON-safe dict of the attributes."""
-        return {k: _safe(getattr(self, k)) for k in self.__dataclass_fields__}
+        return {k: jsonable(getattr(self, k)) for k in self.__dataclass_fields__}
 
 
 @dataclass(frozen=True)
@@ -146,9 +147,9 @@ class OrderOverlap:
     def summary(self) -> dict:
         """JSON-safe dict of the attributes."""
         return {"order": self.order,
-                "wavelength_range_nm": [_safe(v) for v in self.wavelength_range_nm],
+                "wavelength_range_nm": [jsonable(v) for v in self.wavelength_range_nm],
                 "sensitive_range_nm": None if self.sensitive_range_nm is None
-                else [_safe(v) for v in self.sensitive_range_nm]}
+                else [jsonable(v) for v in self.sensitive_range_nm]}
 
 
 @dataclass(frozen=True)
@@ -190,7 +191,7 @@ class FilterAdvice:
         out = {}
         for key in self.__dataclass_fields__:
             value = getattr(self, key)
-            out[key] = [_safe(v) for v in value] if isinstance(value, tuple) else _safe(value)
+            out[key] = [jsonable(v) for v in value] if isinstance(value, tuple) else jsonable(value)
         return out
 
 
@@ -345,42 +346,42 @@ class SetupPlan:
             "profile": self.profile_source,
             "mount": self.mount,
             "medium": self.medium,
-            "grooves_per_mm": _safe(self.grooves_per_mm),
+            "grooves_per_mm": jsonable(self.grooves_per_mm),
             "order": self.order,
-            "grating_angle_deg": _safe(self.grating_angle_deg),
-            "header_angle": _safe(self.header_angle),
-            "solved_for_nm": _safe(self.solved_for_nm),
-            "alpha_deg": _safe(self.alpha_deg),
-            "beta_centre_deg": _safe(self.beta_centre_deg),
-            "littrow_angle_deg": _safe(self.littrow_angle_deg),
-            "angular_dispersion_rad_per_nm": _safe(self.angular_dispersion_rad_per_nm),
+            "grating_angle_deg": jsonable(self.grating_angle_deg),
+            "header_angle": jsonable(self.header_angle),
+            "solved_for_nm": jsonable(self.solved_for_nm),
+            "alpha_deg": jsonable(self.alpha_deg),
+            "beta_centre_deg": jsonable(self.beta_centre_deg),
+            "littrow_angle_deg": jsonable(self.littrow_angle_deg),
+            "angular_dispersion_rad_per_nm": jsonable(self.angular_dispersion_rad_per_nm),
             "binning": list(self.binning),
             "n_pixels": self.n_pixels,
             "wavelength_increases": self.wavelength_increases,
-            "wavelength_range_nm": [_safe(v) for v in self.wavelength_range_nm],
+            "wavelength_range_nm": [jsonable(v) for v in self.wavelength_range_nm],
             "points": [p.summary() for p in self.points],
-            "slit_width_um": _safe(self.slit_width_um),
-            "collimator_focal_length_mm": _safe(self.collimator_focal_length_mm),
-            "free_spectral_range_nm": _safe(self.free_spectral_range_nm),
-            "free_spectral_range_px": _safe(self.free_spectral_range_px),
-            "sensitivity_nm": [_safe(v) for v in self.sensitivity_nm],
+            "slit_width_um": jsonable(self.slit_width_um),
+            "collimator_focal_length_mm": jsonable(self.collimator_focal_length_mm),
+            "free_spectral_range_nm": jsonable(self.free_spectral_range_nm),
+            "free_spectral_range_px": jsonable(self.free_spectral_range_px),
+            "sensitivity_nm": [jsonable(v) for v in self.sensitivity_nm],
             "sensitivity_assumed": self.sensitivity_assumed,
             "overlaps": [o.summary() for o in self.overlaps],
             "filters": self.filters.summary(),
-            "blaze_nm": _safe(self.blaze_nm),
-            "blaze_angle_deg": _safe(self.blaze_angle_deg),
-            "angle_prior_shift_px": _safe(self.angle_prior_shift_px),
-            "line_width_px": _safe(self.line_width_px),
+            "blaze_nm": jsonable(self.blaze_nm),
+            "blaze_angle_deg": jsonable(self.blaze_angle_deg),
+            "angle_prior_shift_px": jsonable(self.angle_prior_shift_px),
+            "line_width_px": jsonable(self.line_width_px),
             "lamps": [s.summary() for s in self.lamps],
             "recommended": [s.summary() for s in self.recommended],
             "profile_lamps": None if self.profile_lamps is None else self.profile_lamps.summary(),
-            "lines": [{k: _safe(v) for k, v in row.items()}
+            "lines": [{k: jsonable(v) for k, v in row.items()}
                       for row in self.lines.to_dict(orient="records")],
             "notes": list(self.notes),
             "warnings": list(self.warnings),
-            "model": {"focal_length_mm": _safe(model.focal_length_mm),
-                      "pixel_mm": _safe(model.pixel_mm), "axis_pixel": _safe(model.axis_pixel),
-                      "tilt_deg": _safe(model.tilt_deg), "deviation_deg": _safe(model.deviation_deg),
+            "model": {"focal_length_mm": jsonable(model.focal_length_mm),
+                      "pixel_mm": jsonable(model.pixel_mm), "axis_pixel": jsonable(model.axis_pixel),
+                      "tilt_deg": jsonable(model.tilt_deg), "deviation_deg": jsonable(model.deviation_deg),
                       "direction": model.direction},
         }
 
@@ -395,19 +396,6 @@ class SetupPlan:
         from .plan_text import format_plan
 
         return format_plan(self)
-
-
-def _safe(value):
-    """JSON-safe scalar: numpy types to Python, NaN/inf to None."""
-    if value is None or isinstance(value, (bool, str)):
-        return value
-    if isinstance(value, (np.bool_,)):
-        return bool(value)
-    if isinstance(value, (int, np.integer)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        return float(value) if math.isfinite(value) else None
-    return value
 
 
 # -- the grating angle ----------------------------------------------------------------------------

@@ -9,10 +9,10 @@ from __future__ import annotations
 
 import argparse
 import json
-import re
 import sys
 from pathlib import Path
 
+from ._stems import file_stem
 from .errors import WavecalError
 
 __all__ = ["add_plan_arguments", "run_plan_command"]
@@ -67,8 +67,7 @@ def add_plan_arguments(parser: argparse.ArgumentParser) -> None:
 
 def _stem(profile, plan) -> str:
     base = profile.source.stem if profile.source is not None else profile.name
-    base = re.sub(r"[^A-Za-z0-9_.-]+", "_", base).strip("_") or "plan"
-    return f"{base}_{plan.central_wavelength_nm:.0f}nm"
+    return f"{file_stem(base, default='plan')}_{plan.central_wavelength_nm:.0f}nm"
 
 
 def _fixed_angle(profile) -> float | None:

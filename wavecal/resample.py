@@ -33,6 +33,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
+from .constants import SPEED_OF_LIGHT_KMS
+
 __all__ = [
     "GRID_KINDS",
     "WavelengthGrid",
@@ -45,8 +47,6 @@ __all__ = [
 
 #: Kinds of output grid.
 GRID_KINDS = ("linear", "log", "user")
-#: Speed of light in km/s (exact, SI definition).
-_C_KMS = 299792.458
 
 
 @dataclass(frozen=True, eq=False)
@@ -150,7 +150,7 @@ def log_grid(start_nm: float, stop_nm: float, *, velocity_step_kms: float | None
     n = _count(start_nm, stop_nm, velocity_step_kms, n_bins, "velocity step")
     total = math.log(stop_nm / start_nm)
     if n == 0:
-        step = velocity_step_kms / _C_KMS
+        step = velocity_step_kms / SPEED_OF_LIGHT_KMS
         n = _covering(total, step)
         return WavelengthGrid(start_nm * np.exp(step * np.arange(n + 1)), "log")
     return WavelengthGrid(start_nm * np.exp(np.linspace(0.0, total, n + 1)), "log")

@@ -28,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from ._atomic import atomic_write_text
+from ._json import jsonable
 from .errors import SolutionFileError
 from .validation import (
     Boolean,
@@ -46,8 +47,7 @@ from .fit import wavelength_sigma
 from .optics import GratingModel
 from .slit import SlitShift
 
-__all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "READABLE_VERSIONS", "STATUSES",
-           "SPEED_OF_LIGHT_KMS"]
+__all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "READABLE_VERSIONS", "STATUSES"]
 
 #: Version of the JSON layout written by :meth:`Solution.write` (2: optional ``slit`` block).
 SCHEMA_VERSION = 2
@@ -55,8 +55,6 @@ SCHEMA_VERSION = 2
 READABLE_VERSIONS = (1, 2)
 #: Possible verdicts, from best to worst.
 STATUSES = ("ok", "suspect", "failed")
-#: Speed of light in km/s (exact, SI definition).
-SPEED_OF_LIGHT_KMS = 299792.458
 
 #: Columns of :attr:`Solution.lines`, in order.
 LINE_COLUMNS = (
@@ -234,10 +232,10 @@ class Solution:
 
     def summary(self) -> dict[str, Any]:
         """A JSON-safe dictionary of the headline facts."""
-        stats = {k: _jsonable(v) for k, v in self.statistics.items()}
+        stats = {k: jsonable(v) for k, v in self.statistics.items()}
         out = {"status": self.status, "reasons": list(self.reasons), "medium": self.medium,
                "frame": self.frame, "profile": self.profile, "lamps": list(self.lamps),
-               "covered_range_px": [_jsonable(v) for v in self.covered_range_px], **stats,
+               "covered_range_px": [jsonable(v) for v in self.covered_range_px], **stats,
                "slit": None if self.slit is None else self.slit.summary()}
         if self.model is not None:
             grid = np.array([0.0, 0.5 * (self.model.n_pixels - 1), self.model.n_pixels - 1.0])
@@ -262,15 +260,15 @@ class Solution:
             "frame": self.frame,
             "profile": self.profile,
             "lamps": list(self.lamps),
-            "covered_range_px": [_jsonable(v) for v in self.covered_range_px],
+            "covered_range_px": [jsonable(v) for v in self.covered_range_px],
             "model": None if self.model is None else _model_to_dict(self.model),
             "slit": None if self.slit is None else self.slit.to_dict(),
-            "parameters": [{k: _jsonable(v) for k, v in p.items()} for p in self.parameters],
+            "parameters": [{k: jsonable(v) for k, v in p.items()} for p in self.parameters],
             "correlation": {"names": list(self.correlation.get("names", ())),
-                            "matrix": _jsonable(self.correlation.get("matrix", []))},
-            "covariance": None if self.covariance is None else _jsonable(self.covariance),
-            "statistics": {k: _jsonable(v) for k, v in self.statistics.items()},
-            "lines": {col: [_jsonable(v) for v in lines[col].tolist()] for col in LINE_COLUMNS},
+                            "matrix": jsonable(self.correlation.get("matrix", []))},
+            "covariance": None if self.covariance is None else jsonable(self.covariance),
+            "statistics": {k: jsonable(v) for k, v in self.statistics.items()},
+            "lines": {col: [jsonable(v) for v in lines[col].tolist()] for col in LINE_COLUMNS},
         }
 
     def write(self, path: str | Path) -> Path:
@@ -283,23 +281,7 @@ class Solution:
 def _model_to_dict(model: GratingModel) -> dict[str, Any]:
     out = dataclasses.asdict(model)
     out["distortion"] = list(model.distortion)
-    return {k: _jsonable(v) for k, v in out.items()}
-
-
-def _jsonable(value: Any) -> Any:
-    """Convert numpy scalars/arrays to plain Python; NaN and infinities to None."""
-    if isinstance(value, np.ndarray):
-        return [_jsonable(v) for v in value.tolist()]
-    if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, (np.bool_, bool)):
-        return bool(value)
-    if isinstance(value, (np.integer,)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        value = float(value)
-        return value if math.isfinite(value) else None
-    return value
+    return {k: jsonable(v) for k, v in out.items()}
 
 
 #: Line columns that files written by earlier versions lack (read as empty).

@@ -21,7 +21,7 @@ from astropy.time import Time
 
 from ..errors import WavecalError
 from ..profile import InstrumentProfile
-from ..products import safe_stem
+from .._stems import file_stem
 
 __all__ = ["FITS_SUFFIXES", "KINDS", "FileRecord", "Inventory", "build_inventory", "classify",
            "find_files", "survey"]
@@ -400,7 +400,7 @@ def _unique_stems(records: list[FileRecord]) -> list[FileRecord]:
     seen: dict[str, int] = {}
     out = []
     for r in records:
-        stem = safe_stem(r.path.name)
+        stem = file_stem(r.path.name)
         n = seen.get(stem.lower(), 0) + 1
         seen[stem.lower()] = n
         out.append(replace(r, stem=stem if n == 1 else f"{stem}-{n}"))

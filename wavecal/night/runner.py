@@ -27,7 +27,7 @@ from typing import Any
 
 import pandas as pd
 
-from .. import __version__
+from .._version import __version__
 from .._atomic import atomic_write_text
 from ..errors import FrameError, WavecalError
 from ..profile import InstrumentProfile

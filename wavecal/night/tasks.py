@@ -15,7 +15,7 @@ from typing import Any
 
 from astropy.io import fits
 
-from .. import __version__
+from .._version import __version__
 from .._atomic import atomic_path, atomic_write_text
 from ..apply import calibrate_image
 from ..calibrate import calibrate_frame

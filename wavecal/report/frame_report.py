@@ -16,7 +16,9 @@ import numpy as np
 
 from .._atomic import atomic_write_bytes, atomic_write_text
 from ..peaks import describe_flags
-from ..solution import Solution, _jsonable
+from .._json import jsonable
+from .._stems import file_stem
+from ..solution import Solution
 from . import figures
 from .html import esc, fmt, image, page, status_badge, table
 
@@ -46,13 +48,9 @@ class FrameReport:
 
 
 def report_stem(solution: Solution) -> str:
-    """File stem of a solution's report: the frame's file name without ``.fits``/``.fit``
+    """File stem of a solution's report: :func:`wavecal._stems.file_stem` of the frame's name
     (``"solution"`` when the frame is unknown)."""
-    name = Path(solution.frame).name if solution.frame else "solution"
-    for suffix in (".fits.gz", ".fits", ".fit", ".fts"):
-        if name.lower().endswith(suffix):
-            return name[:-len(suffix)] or "solution"
-    return name or "solution"
+    return file_stem(solution.frame or "solution", default="solution")
 
 
 def frame_facts(solution: Solution) -> dict[str, Any]:
@@ -61,7 +59,7 @@ def frame_facts(solution: Solution) -> dict[str, Any]:
     for p in solution.parameters:
         shift = p.get("shift_sigma")
         shift = math.nan if shift is None else float(shift)
-        params.append({**{k: _jsonable(v) for k, v in p.items()},
+        params.append({**{k: jsonable(v) for k, v in p.items()},
                        "large_shift": bool(math.isfinite(shift)
                                            and abs(shift) > LARGE_SHIFT_SIGMA)})
     counts = solution.lines["identification"].astype(str).value_counts().to_dict()
@@ -70,7 +68,7 @@ def frame_facts(solution: Solution) -> dict[str, Any]:
             "identification_counts": {k: int(v) for k, v in sorted(counts.items())},
             "parameters": params,
             "correlation": {"names": list(solution.correlation.get("names", ())),
-                            "matrix": _jsonable(np.asarray(solution.correlation.get(
+                            "matrix": jsonable(np.asarray(solution.correlation.get(
                                 "matrix", []), dtype=float))},
             "software_version": solution.software_version}
 
@@ -192,15 +190,7 @@ def write_frame_report(solution: Solution, out_dir: str | Path, *,
         paths.append(path)
     facts["figures"] = [p.name for p in paths]
     html_path, json_path = out / f"{stem}.report.html", out / f"{stem}.report.json"
-    text = json.dumps(_jsonable_tree(facts), indent=1, allow_nan=False) + "\n"
+    text = json.dumps(jsonable(facts), indent=1, allow_nan=False) + "\n"
     atomic_write_text(json_path, text, durable=False)
     atomic_write_text(html_path, page(f"wavecal: {stem}", "\n".join(body)), durable=False)
     return FrameReport(html=html_path, json=json_path, pngs=tuple(paths))
-
-
-def _jsonable_tree(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {str(k): _jsonable_tree(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_jsonable_tree(v) for v in value]
-    return _jsonable(value)

@@ -18,7 +18,8 @@ import pandas as pd
 
 from .._atomic import atomic_write_bytes, atomic_write_text
 from ..errors import SolutionFileError, WavecalError
-from ..solution import _jsonable, load_solution
+from .._json import jsonable
+from ..solution import load_solution
 from . import figures
 from .frame_report import FrameReport, write_frame_report
 from .html import esc, fmt, image, page, status_badge, table
@@ -157,11 +158,11 @@ def write_night_report(night_dir: str | Path, *, frames: bool = True) -> NightRe
         png_paths.append(path)
     facts = {"schema": "wavecal-night-report", "schema_version": 1,
              "night": night.resolve().name, "counts": counts,
-             "files": [{k: _jsonable(v) for k, v in r.items()}
+             "files": [{k: jsonable(v) for k, v in r.items()}
                        for r in ordered.to_dict(orient="records")],
-             "drift": [{k: _jsonable(v) for k, v in r.items()}
+             "drift": [{k: jsonable(v) for k, v in r.items()}
                        for r in drift.to_dict(orient="records")],
-             "arcs": [{k: _jsonable(v) for k, v in a.items()} for a in arcs]}
+             "arcs": [{k: jsonable(v) for k, v in a.items()} for a in arcs]}
     html_path, json_path = night / "night_report.html", night / "night_report.json"
     atomic_write_text(json_path, json.dumps(facts, indent=1, allow_nan=False) + "\n",
                       durable=False)
