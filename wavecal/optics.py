@@ -29,6 +29,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, replace
 
+import math
+
 import numpy as np
 from numpy.polynomial import legendre
 
@@ -42,7 +44,15 @@ __all__ = [
     "resolving_power",
     "free_spectral_range",
     "littrow_blaze_wavelength",
+    "angle_search_range",
+    "solve_grating_angle",
+    "scalar_blaze_efficiency",
 ]
+
+#: No angle of incidence or camera-axis diffraction angle beyond this (degrees) is considered.
+_GRAZING_DEG = 80.0
+#: Step (degrees) of the scan that brackets the grating-angle roots before brentq refines them.
+_ANGLE_STEP_DEG = 0.25
 
 
 def mount_angles(mount: str, grating_angle_deg: float, deviation_deg: float,
@@ -285,3 +295,110 @@ class GratingModel:
     def central_wavelength(self) -> float:
         """Wavelength (nm) at the middle of the detector."""
         return float(self.wavelength(0.5 * (self.n_pixels - 1)))
+
+
+# -- the grating angle for a wanted central wavelength -------------------------------------------
+def angle_search_range(model: GratingModel) -> tuple[float, float]:
+    """Grating angles (degrees) that keep α and the camera-axis β within 80° of the normal.
+
+    Reflection: α = φ + D/2, β_c = φ − D/2; transmission: α = φ, β_c = D − φ; grism: α = A + φ
+    inside the glass (β_c does not depend on φ); see the module docstring.
+
+    Raises
+    ------
+    ValueError
+        For a mount without a grating angle.
+    """
+    lim = _GRAZING_DEG
+    if model.mount == "reflection":
+        half = 0.5 * abs(model.deviation_deg)
+        return -lim + half, lim - half
+    if model.mount == "transmission":
+        return max(-lim, model.deviation_deg - lim), min(lim, model.deviation_deg + lim)
+    if model.mount == "grism":
+        return -lim - model.prism_apex_deg, lim - model.prism_apex_deg
+    msg = f"mount {model.mount!r} has no grating angle to solve for"
+    raise ValueError(msg)
+
+
+def solve_grating_angle(model: GratingModel, central_wavelength_nm: float) -> float:
+    """Physical grating angle (degrees) that puts ``central_wavelength_nm`` at the detector centre.
+
+    The centre wavelength of ``model`` (its own grating angle is ignored) is scanned over
+    :func:`angle_search_range` in steps of 0.25°; each bracketed root is refined with
+    :func:`scipy.optimize.brentq`. Of the roots that light the whole detector the one nearest 0°
+    is returned (a transmission grating has two, symmetric about its minimum-deviation angle).
+
+    Raises
+    ------
+    ValueError
+        When no angle in the range reaches the wavelength; the message gives the reachable range.
+    """
+    from scipy.optimize import brentq  # scipy loads only when an angle is solved for
+
+    target = float(central_wavelength_nm)
+    if not (math.isfinite(target) and target > 0):
+        msg = f"central wavelength must be a positive number of nm, got {central_wavelength_nm!r}"
+        raise ValueError(msg)
+    template = model.with_parameters(grating_angle_deg=0.0)
+    centre = 0.5 * (template.n_pixels - 1)
+    ends = np.array([0.0, template.n_pixels - 1.0])
+    lo, hi = angle_search_range(template)
+    grid = np.linspace(lo, hi, math.ceil((hi - lo) / _ANGLE_STEP_DEG) + 1)
+
+    def offset(phi: float) -> float:
+        return float(template.with_parameters(grating_angle_deg=phi).wavelength(centre)) - target
+
+    values = np.array([offset(p) for p in grid])
+    roots = [float(p) for p, v in zip(grid, values) if v == 0.0]
+    for i in np.flatnonzero(np.sign(values[:-1]) * np.sign(values[1:]) < 0):
+        roots.append(float(brentq(offset, grid[i], grid[i + 1], xtol=1e-10)))
+    lit = [r for r in roots
+           if np.all(np.isfinite(template.with_parameters(grating_angle_deg=r).wavelength(ends)))]
+    if not lit:
+        reach = values + target
+        reach = reach[np.isfinite(reach) & (reach > 0)]
+        span = (f"{reach.min():.1f}–{reach.max():.1f} nm" if len(reach) else "no positive wavelength")
+        msg = (f"central wavelength {target:g} nm is out of reach in order {template.order}: "
+               f"grating angles {lo:.1f}° to {hi:.1f}° put {span} at the detector centre")
+        raise ValueError(msg)
+    return min(lit, key=abs)
+
+
+# -- blaze ---------------------------------------------------------------------------------------
+def scalar_blaze_efficiency(model: GratingModel, wavelength_nm, order: int, *, blaze_nm: float,
+                            blaze_order: int) -> np.ndarray:
+    """Relative efficiency (1 at the blaze peak) of a blazed grating, scalar approximation.
+
+    Reflection gratings: the Fraunhofer pattern of one groove facet (common practice), ::
+
+        efficiency = sinc²(γ),  γ = π (d cos θ_B / λ) [sin(α − θ_B) + sin(β − θ_B)]
+
+    with facet width ``d cos θ_B``, α from the model, β from the grating equation for λ in
+    ``order``, and the blaze angle θ_B from the Littrow blaze condition ``m_B λ_B = 2 d sin θ_B``
+    (``m_B = blaze_order``). γ = 0 (efficiency 1) where the facet reflects specularly into β;
+    in Littrow that is λ_B. Transmission gratings and grisms: the small-angle form of the same
+    function, γ = π (m − m_B λ_B / λ), whose peak is at λ_B in the blaze order.
+
+    The scalar theory ignores polarisation, groove shadowing and resonance anomalies; for groove
+    spacings below about two wavelengths the real efficiency can differ a lot. Returns NaN where
+    λ cannot be diffracted into ``order``.
+    """
+    lam = np.asarray(wavelength_nm, dtype=float)
+    g = model.grooves_per_mm * 1e-6
+    alpha, _ = model.angles
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if model.mount == "reflection":
+            sin_tb = blaze_order * g * blaze_nm / 2.0
+            if not 0 < sin_tb < 1:
+                msg = f"blaze wavelength {blaze_nm} nm in order {blaze_order} gives no blaze angle"
+                raise ValueError(msg)
+            theta = np.arcsin(sin_tb)
+            sin_beta = order * g * lam - np.sin(np.radians(alpha))
+            beta = np.arcsin(np.where(np.abs(sin_beta) <= 1, sin_beta, np.nan))
+            gamma = (np.pi * np.cos(theta) / (g * lam)
+                     * (np.sin(np.radians(alpha) - theta) + np.sin(beta - theta)))
+        else:
+            valid = np.isfinite(model.with_parameters(order=int(order)).pixel(lam))
+            gamma = np.where(valid, np.pi * (order - blaze_order * blaze_nm / lam), np.nan)
+        return np.sinc(gamma / np.pi) ** 2

@@ -82,6 +82,7 @@ def _fixed_angle(profile) -> float | None:
 def run_plan_command(args: argparse.Namespace) -> int:
     """Run ``wavecal plan``; returns the exit code (see the module docstring)."""
     from .plan import plan_setup
+    from .plan.text import format_plan
     from .profile import load_profile
 
     try:
@@ -103,7 +104,7 @@ def run_plan_command(args: argparse.Namespace) -> int:
             stem = _stem(profile, plan)
             written.append(plan.to_json(Path(out) / f"{stem}.plan.json"))
             if not getattr(args, "no_plot", False):
-                from .plan_plot import save_plan_plot
+                from .plan.plot import save_plan_plot
 
                 written.append(save_plan_plot(plan, Path(out) / f"{stem}.plan.png"))
     except (WavecalError, OSError) as exc:
@@ -112,7 +113,7 @@ def run_plan_command(args: argparse.Namespace) -> int:
     if getattr(args, "print_json", False):
         print(json.dumps(plan.summary(), indent=2, allow_nan=False))
     else:
-        print(plan.format_table())
+        print(format_plan(plan))
     if written:
         print(f"written: {', '.join(str(p) for p in written)}",
               file=sys.stderr if getattr(args, "print_json", False) else sys.stdout)

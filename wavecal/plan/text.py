@@ -4,7 +4,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
-    from .plan import SetupPlan
+    from .core import SetupPlan
 
 __all__ = ["format_plan"]
 

@@ -14,10 +14,11 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from ._atomic import atomic_path  # noqa: E402
+from .._atomic import atomic_path  # noqa: E402
+from ..optics import scalar_blaze_efficiency  # noqa: E402
 
 if TYPE_CHECKING:
-    from .plan import SetupPlan
+    from .core import SetupPlan
 
 __all__ = ["PLAN_PALETTE", "plan_figure", "save_plan_plot"]
 
@@ -86,8 +87,6 @@ def plan_figure(plan: SetupPlan):
         top.fill_between(x, 0, 1.05, where=overlapped, color=PLAN_PALETTE["overlap"], alpha=0.3,
                          lw=0, label="other orders land here (no filter)")
     if plan.blaze_nm is not None:
-        from .plan import scalar_blaze_efficiency
-
         eff = scalar_blaze_efficiency(model, lam, plan.order, blaze_nm=plan.blaze_nm,
                                       blaze_order=plan.order)
         top.plot(x, eff, color=PLAN_PALETTE["blaze"], lw=2, label="blaze efficiency (scalar)")

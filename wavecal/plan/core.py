@@ -6,7 +6,8 @@ wavelength (the angle is then solved for) and returns a :class:`SetupPlan`:
 1. **Range and dispersion.** Wavelengths at the first pixel, the centre and the last pixel of
    the detector, the reciprocal linear dispersion (nm/px) there, the angular dispersion and the
    Littrow angle of the central wavelength, all from the profile's nominal geometry
-   (:func:`wavecal.model_setup.nominal_model`, no distortion).
+   (:func:`wavecal.model_setup.nominal_model`, no distortion); an angle for a wanted central
+   wavelength comes from :func:`wavecal.optics.solve_grating_angle`.
 2. **Resolving power** R = λ/Δλ for a slit of width ``w``: the slit subtends ``w / f_coll`` at
    the collimator; the grating magnifies that angle by the anamorphic factor ``cos α / cos β``;
    Δλ is that angle times dλ/dβ. On the detector this is a slit image of ``w · (cos α / cos β) ·
@@ -19,11 +20,10 @@ wavelength (the angle is then solved for) and returns a :class:`SetupPlan`:
    λ = m'λ'/m (same α and β); for every neighbouring order (m−1, m+1, 2m, and any order whose
    wavelengths on the detector lie in the sensitivity range) the band that lands on the
    detector is listed. The free spectral range is λ/m at the centre. The order-sorting advice
-   (:class:`FilterAdvice`) follows every order's wavelengths across the detector on a
-   half-pixel grid, from the model (so a grism's prism dispersion is included).
-4. **Blaze** (:func:`scalar_blaze_efficiency`): relative efficiency in the scalar approximation.
+   follows every order's wavelengths across the detector (:mod:`wavecal.plan.orders`).
+4. **Blaze** (:func:`wavecal.optics.scalar_blaze_efficiency`): relative efficiency in the scalar approximation.
 5. **Lamps**: every shipped line list and every useful mix of up to three, scored and ranked
-   (:mod:`wavecal.plan_lamps`), with the ghost lines of other orders.
+   (:mod:`wavecal.plan.lamps`), with the ghost lines of other orders.
 
 The sensitivity range is the profile's ``sensitivity_nm``; without one 300–1100 nm is assumed
 (a silicon detector, common practice) and the plan says so.
@@ -37,37 +37,21 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from scipy.optimize import brentq
 
-from ._atomic import atomic_write_text
-from ._json import jsonable
-from .errors import WavecalError
-from .linelists import available_elements, load_line_list
-from .model_setup import nominal_model, prior_box
-from .optics import GratingModel
-from .plan_lamps import STRONG_INTENSITY, LampScore, rank_lamp_mixes, score_lamps
-from .profile import InstrumentProfile
+from .._atomic import atomic_write_text
+from .._json import jsonable
+from ..errors import WavecalError
+from ..linelists import available_elements
+from ..model_setup import nominal_model, prior_box
+from ..optics import GratingModel, scalar_blaze_efficiency, solve_grating_angle
+from ..profile import InstrumentProfile
+from .lamps import LampScore, rank_lamp_mixes, score_lamps
+from .orders import FilterAdvice, OrderOverlap, filter_advice, line_table, order_overlaps
 
-__all__ = [
-    "DEFAULT_SENSITIVITY_NM",
-    "PlanningError",
-    "SamplePoint",
-    "OrderOverlap",
-    "FilterAdvice",
-    "SetupPlan",
-    "plan_setup",
-    "solve_grating_angle",
-    "angle_search_range",
-    "scalar_blaze_efficiency",
-    "clean_range",
-]
+__all__ = ["DEFAULT_SENSITIVITY_NM", "PlanningError", "SamplePoint", "SetupPlan", "plan_setup"]
 
 #: Sensitivity range assumed when a profile states none (silicon detector, common practice).
 DEFAULT_SENSITIVITY_NM = (300.0, 1100.0)
-#: No angle of incidence or camera-axis diffraction angle beyond this (degrees) is considered.
-_GRAZING_DEG = 80.0
-#: Step (degrees) of the scan that brackets the grating-angle roots before brentq refines them.
-_ANGLE_STEP_DEG = 0.25
 #: Line width (pixels) assumed for the crowding test when the slit image is unknown (common
 #: practice: spectrographs sample a line with 2-4 pixels).
 _DEFAULT_LINE_WIDTH_PX = 3.0
@@ -124,75 +108,6 @@ class SamplePoint:
     def summary(self) -> dict:
         """JSON-safe dict of the attributes."""
         return {k: jsonable(getattr(self, k)) for k in self.__dataclass_fields__}
-
-
-@dataclass(frozen=True)
-class OrderOverlap:
-    """The wavelengths of another order that land on the detector.
-
-    Attributes
-    ----------
-    order : int
-        The other order m'.
-    wavelength_range_nm : tuple of float
-        Its wavelengths (min, max) that fall on the detector.
-    sensitive_range_nm : tuple of float or None
-        The part of that band inside the sensitivity range (None: none of it).
-    """
-
-    order: int
-    wavelength_range_nm: tuple[float, float]
-    sensitive_range_nm: tuple[float, float] | None
-
-    def summary(self) -> dict:
-        """JSON-safe dict of the attributes."""
-        return {"order": self.order,
-                "wavelength_range_nm": [jsonable(v) for v in self.wavelength_range_nm],
-                "sensitive_range_nm": None if self.sensitive_range_nm is None
-                else [jsonable(v) for v in self.sensitive_range_nm]}
-
-
-@dataclass(frozen=True)
-class FilterAdvice:
-    """Order-sorting filters for the setting.
-
-    Attributes
-    ----------
-    long_pass_needed : bool
-        Light of higher orders (shorter wavelengths) within the sensitivity range reaches the
-        part of the detector where the working order is detectable.
-    cut_on_window_nm : tuple of float or None
-        A long-pass cut-on anywhere strictly above the first and at or below the second value
-        blocks the higher orders and passes the whole detectable working-order band; None when no
-        long-pass is needed or none can (the detector spans more than a free spectral range).
-    cut_on_nm : float or None
-        Suggested cut-on (the middle of the window, or, when no window exists, the lowest cut-on
-        that keeps the red end of the detector clean).
-    short_pass_needed, cut_off_window_nm, cut_off_nm
-        The same for lower orders (longer wavelengths), which only exist for orders m ≥ 2.
-    clean_range_nm : tuple of float or None
-        Working-order wavelengths free of other orders with the suggested filter(s) (None if
-        none).
-    clears_detector : bool
-        The clean range is the whole detectable working-order band.
-    """
-
-    long_pass_needed: bool
-    cut_on_window_nm: tuple[float, float] | None
-    cut_on_nm: float | None
-    short_pass_needed: bool
-    cut_off_window_nm: tuple[float, float] | None
-    cut_off_nm: float | None
-    clean_range_nm: tuple[float, float] | None
-    clears_detector: bool
-
-    def summary(self) -> dict:
-        """JSON-safe dict of the attributes."""
-        out = {}
-        for key in self.__dataclass_fields__:
-            value = getattr(self, key)
-            out[key] = [jsonable(v) for v in value] if isinstance(value, tuple) else jsonable(value)
-        return out
 
 
 @dataclass(frozen=True, eq=False)
@@ -391,206 +306,6 @@ class SetupPlan:
         atomic_write_text(path, json.dumps(self.summary(), indent=2, allow_nan=False) + "\n")
         return path
 
-    def format_table(self) -> str:
-        """The plan as a plain-text table for the terminal."""
-        from .plan_text import format_plan
-
-        return format_plan(self)
-
-
-# -- the grating angle ----------------------------------------------------------------------------
-def angle_search_range(profile: InstrumentProfile) -> tuple[float, float]:
-    """Grating angles (degrees) that keep α and the camera-axis β within 80° of the normal.
-
-    Reflection: α = φ + D/2, β_c = φ − D/2; transmission: α = φ, β_c = D − φ; grism: α = A + φ
-    inside the glass (β_c does not depend on φ). See :mod:`wavecal.optics`.
-    """
-    g = profile.grating
-    lim = _GRAZING_DEG
-    if g.mount == "reflection":
-        half = 0.5 * abs(g.deviation_deg)
-        return -lim + half, lim - half
-    if g.mount == "transmission":
-        return max(-lim, g.deviation_deg - lim), min(lim, g.deviation_deg + lim)
-    if g.mount == "grism":
-        return -lim - g.prism_apex_deg, lim - g.prism_apex_deg
-    msg = f"{_where(profile)}: mount {g.mount!r} has no grating angle to solve for"
-    raise PlanningError(msg)
-
-
-def solve_grating_angle(profile: InstrumentProfile, central_wavelength_nm: float, *,
-                        binning: tuple[int, int] = (1, 1)) -> float:
-    """Physical grating angle (degrees) that puts ``central_wavelength_nm`` at the detector centre.
-
-    The centre wavelength is scanned over :func:`angle_search_range` in steps of 0.25°; each
-    bracketed root is refined with :func:`scipy.optimize.brentq`. Of the roots that light the
-    whole detector the one nearest 0° is returned (a transmission grating has two, symmetric
-    about its minimum-deviation angle).
-
-    Raises
-    ------
-    PlanningError
-        When no angle in the range reaches the wavelength; the message gives the reachable range.
-    """
-    target = float(central_wavelength_nm)
-    if not (math.isfinite(target) and target > 0):
-        msg = f"{_where(profile)}: central wavelength must be a positive number of nm, got {central_wavelength_nm!r}"
-        raise PlanningError(msg)
-    template = nominal_model(profile, 0.0, binning)
-    centre = 0.5 * (template.n_pixels - 1)
-    ends = np.array([0.0, template.n_pixels - 1.0])
-    lo, hi = angle_search_range(profile)
-    grid = np.linspace(lo, hi, math.ceil((hi - lo) / _ANGLE_STEP_DEG) + 1)
-
-    def offset(phi: float) -> float:
-        return float(template.with_parameters(grating_angle_deg=phi).wavelength(centre)) - target
-
-    values = np.array([offset(p) for p in grid])
-    roots = [float(p) for p, v in zip(grid, values) if v == 0.0]
-    for i in np.flatnonzero(np.sign(values[:-1]) * np.sign(values[1:]) < 0):
-        roots.append(float(brentq(offset, grid[i], grid[i + 1], xtol=1e-10)))
-    lit = [r for r in roots
-           if np.all(np.isfinite(template.with_parameters(grating_angle_deg=r).wavelength(ends)))]
-    if not lit:
-        reach = values + target
-        reach = reach[np.isfinite(reach) & (reach > 0)]
-        span = (f"{reach.min():.1f}–{reach.max():.1f} nm" if len(reach) else "no positive wavelength")
-        msg = (f"{_where(profile)}: central wavelength {target:g} nm is out of reach in order "
-               f"{profile.grating.order}: grating angles {lo:.1f}° to {hi:.1f}° put {span} at the "
-               f"detector centre")
-        raise PlanningError(msg)
-    return min(lit, key=abs)
-
-
-# -- blaze ---------------------------------------------------------------------------------------
-def scalar_blaze_efficiency(model: GratingModel, wavelength_nm, order: int, *, blaze_nm: float,
-                            blaze_order: int) -> np.ndarray:
-    """Relative efficiency (1 at the blaze peak) of a blazed grating, scalar approximation.
-
-    Reflection gratings: the Fraunhofer pattern of one groove facet (common practice), ::
-
-        efficiency = sinc²(γ),  γ = π (d cos θ_B / λ) [sin(α − θ_B) + sin(β − θ_B)]
-
-    with facet width ``d cos θ_B``, α from the model, β from the grating equation for λ in
-    ``order``, and the blaze angle θ_B from the Littrow blaze condition ``m_B λ_B = 2 d sin θ_B``
-    (``m_B = blaze_order``). γ = 0 (efficiency 1) where the facet reflects specularly into β;
-    in Littrow that is λ_B. Transmission gratings and grisms: the small-angle form of the same
-    function, γ = π (m − m_B λ_B / λ), whose peak is at λ_B in the blaze order.
-
-    The scalar theory ignores polarisation, groove shadowing and resonance anomalies; for groove
-    spacings below about two wavelengths the real efficiency can differ a lot. Returns NaN where
-    λ cannot be diffracted into ``order``.
-    """
-    lam = np.asarray(wavelength_nm, dtype=float)
-    g = model.grooves_per_mm * 1e-6
-    alpha, _ = model.angles
-    with np.errstate(invalid="ignore", divide="ignore"):
-        if model.mount == "reflection":
-            sin_tb = blaze_order * g * blaze_nm / 2.0
-            if not 0 < sin_tb < 1:
-                msg = f"blaze wavelength {blaze_nm} nm in order {blaze_order} gives no blaze angle"
-                raise PlanningError(msg)
-            theta = np.arcsin(sin_tb)
-            sin_beta = order * g * lam - np.sin(np.radians(alpha))
-            beta = np.arcsin(np.where(np.abs(sin_beta) <= 1, sin_beta, np.nan))
-            gamma = (np.pi * np.cos(theta) / (g * lam)
-                     * (np.sin(np.radians(alpha) - theta) + np.sin(beta - theta)))
-        else:
-            valid = np.isfinite(model.with_parameters(order=int(order)).pixel(lam))
-            gamma = np.where(valid, np.pi * (order - blaze_order * blaze_nm / lam), np.nan)
-        return np.sinc(gamma / np.pi) ** 2
-
-
-# -- filters -------------------------------------------------------------------------------------
-def _detector_grid(model: GratingModel) -> np.ndarray:
-    """Half-pixel grid over the detector, ends included."""
-    return np.linspace(0.0, model.n_pixels - 1.0, 2 * model.n_pixels - 1)
-
-
-def _other_orders(model: GratingModel, sensitivity_nm: tuple[float, float]) -> list[int]:
-    """Orders other than the working one whose light on the detector can reach the sensitivity range."""
-    m = model.order
-    top = float(np.max(model.wavelength(np.array([0.0, model.n_pixels - 1.0]))))
-    return [k for k in range(1, max(2 * m, math.ceil(m * top / sensitivity_nm[0])) + 1) if k != m]
-
-
-def clean_range(model: GratingModel, sensitivity_nm: tuple[float, float], *,
-                cut_on_nm: float | None = None, cut_off_nm: float | None = None,
-                ) -> tuple[float, float] | None:
-    """Working-order wavelengths on the detector that no other order overlaps.
-
-    Light of any order is detected when its wavelength lies in the sensitivity range and passes
-    the filters (a long-pass with ``cut_on_nm``, a short-pass with ``cut_off_nm``). On a
-    half-pixel grid over the detector, a point is clean when its working-order light is detected
-    and no other order's is (each order's wavelength there from the model, i.e. m'λ' = mλ for
-    reflection and transmission gratings, with the prism's dispersion for a grism). Returns the
-    working-order wavelengths (min, max) of the longest clean run, or None.
-    """
-    x = _detector_grid(model)
-    lam = model.wavelength(x)
-    lo = max(sensitivity_nm[0], -np.inf if cut_on_nm is None else cut_on_nm)
-    hi = min(sensitivity_nm[1], np.inf if cut_off_nm is None else cut_off_nm)
-    clean = (lam >= lo) & (lam <= hi)
-    for k in _other_orders(model, sensitivity_nm):
-        other = model.with_parameters(order=k).wavelength(x)
-        clean &= ~((other >= lo) & (other <= hi))
-    if not clean.any():
-        return None
-    edges = np.flatnonzero(np.diff(np.concatenate([[0], clean.astype(int), [0]])))
-    starts, stops = edges[::2], edges[1::2]
-    best = int(np.argmax(stops - starts))
-    run = lam[starts[best]:stops[best]]
-    return float(run.min()), float(run.max())
-
-
-def _inside(value: float, window: tuple[float, float]) -> float:
-    """``value`` rounded to a whole nm if that stays strictly inside ``window``."""
-    rounded = float(round(value))
-    return rounded if window[0] < rounded < window[1] else float(value)
-
-
-def _offending(model: GratingModel, x: np.ndarray, orders: list[int], sens) -> np.ndarray:
-    """Detectable wavelengths of ``orders`` landing on the grid points ``x``."""
-    values = [model.with_parameters(order=k).wavelength(x) for k in orders]
-    values = np.concatenate(values) if values else np.array([])
-    return values[(values >= sens[0]) & (values <= sens[1])]
-
-
-def _filter_advice(model: GratingModel, sens: tuple[float, float]) -> FilterAdvice:
-    m = model.order
-    x = _detector_grid(model)
-    lam = model.wavelength(x)
-    wanted = (lam >= sens[0]) & (lam <= sens[1])
-    if not wanted.any():  # nothing detectable in the working order: nothing to sort
-        return FilterAdvice(long_pass_needed=False, cut_on_window_nm=None, cut_on_nm=None,
-                            short_pass_needed=False, cut_off_window_nm=None, cut_off_nm=None,
-                            clean_range_nm=None, clears_detector=False)
-    w_lo, w_hi = float(lam[wanted].min()), float(lam[wanted].max())
-    others = _other_orders(model, sens)
-    higher = _offending(model, x[wanted], [k for k in others if k > m], sens)
-    cut_on = window_on = None
-    if len(higher):
-        top = float(higher.max())  # the longest detectable higher-order wavelength to block
-        if top < w_lo:
-            window_on = (top, w_lo)
-            cut_on = _inside(0.5 * (top + w_lo), window_on)
-        else:  # no window: keep the red end clean
-            cut_on = float(math.floor(top) + 1)
-    lower = _offending(model, x[wanted], [k for k in others if k < m], sens)
-    cut_off = window_off = None
-    if len(lower):
-        bottom = float(lower.min())  # the shortest detectable lower-order wavelength to block
-        if bottom > w_hi:
-            window_off = (w_hi, bottom)
-            cut_off = _inside(0.5 * (bottom + w_hi), window_off)
-        else:  # no window: keep the blue end clean
-            cut_off = float(math.ceil(bottom) - 1)
-    clean = clean_range(model, sens, cut_on_nm=cut_on, cut_off_nm=cut_off)
-    return FilterAdvice(long_pass_needed=bool(len(higher)), cut_on_window_nm=window_on, cut_on_nm=cut_on,
-                        short_pass_needed=bool(len(lower)), cut_off_window_nm=window_off,
-                        cut_off_nm=cut_off, clean_range_nm=clean,
-                        clears_detector=clean == (w_lo, w_hi))
-
 
 # -- the plan --------------------------------------------------------------------------------------
 def _where(profile: InstrumentProfile) -> str:
@@ -640,7 +355,7 @@ def plan_setup(profile: InstrumentProfile, *, grating_angle_deg: float | None = 
         Physical grating angle (degrees), as ``wavecal solve --grating-angle`` takes it.
     central_wavelength_nm : float, optional
         Wavelength (profile medium) wanted at the detector centre; the angle is solved for with
-        :func:`solve_grating_angle`. Give exactly one of the two (neither for a profile of
+        :func:`wavecal.optics.solve_grating_angle`. Give exactly one of the two (neither for a profile of
         unknown geometry, whose setting is fixed by its ``[approximate]`` table).
     slit_width_um : float, optional
         Slit width in micrometres, for the slit-limited resolving power.
@@ -663,7 +378,11 @@ def plan_setup(profile: InstrumentProfile, *, grating_angle_deg: float | None = 
     g = profile.grating
     approximate = g.mount == "approximate"
     if central_wavelength_nm is not None:
-        angle = solve_grating_angle(profile, central_wavelength_nm, binning=bins)
+        try:
+            angle = solve_grating_angle(nominal_model(profile, 0.0, bins), central_wavelength_nm)
+        except ValueError as exc:
+            msg = f"{where}: {exc}"
+            raise PlanningError(msg) from None
     else:
         angle = None if approximate else float(grating_angle_deg)
     model = nominal_model(profile, 0.0 if angle is None else angle, bins)
@@ -692,11 +411,11 @@ def plan_setup(profile: InstrumentProfile, *, grating_angle_deg: float | None = 
     f_coll = None if approximate else profile.camera.collimator_focal_length_mm
     points = _sample_points(model, xs, slit_width_um, f_coll, efficiency)
     band = (float(lam.min()), float(lam.max()))
-    overlaps = _overlaps(model, sens)
-    filters = _filter_advice(model, sens)
+    overlaps = order_overlaps(model, sens)
+    filters = filter_advice(model, sens)
     width = (max(points[1].slit_image_px, 2.0) if points[1].slit_image_px is not None
              else _DEFAULT_LINE_WIDTH_PX)
-    lines = _line_table(model, profile.medium, sens, efficiency, filters)
+    lines = line_table(model, profile.medium, sens, efficiency, filters)
     elements = available_elements()
     lamps = tuple(score_lamps(lines, (e,), order=model.order, n_pixels=n, line_width_px=width)
                   for e in elements)
@@ -764,65 +483,6 @@ def _sample_points(model: GratingModel, xs: np.ndarray, slit_um, f_coll, efficie
             sampling_resolving_power=float(lam[i] / (2.0 * disp[i])),
             blaze_efficiency=None if not np.isfinite(eff[i]) else float(eff[i])))
     return tuple(points)
-
-
-def _overlaps(model: GratingModel, sens: tuple[float, float]) -> tuple[OrderOverlap, ...]:
-    m = model.order
-    ends = np.array([0.0, model.n_pixels - 1.0])
-    out = []
-    for k in _other_orders(model, sens):
-        wl = model.with_parameters(order=k).wavelength(ends)
-        lo, hi = float(np.min(wl)), float(np.max(wl))
-        s_lo, s_hi = max(lo, sens[0]), min(hi, sens[1])
-        sensitive = (s_lo, s_hi) if s_lo <= s_hi else None
-        if sensitive is not None or k in (m - 1, m + 1, 2 * m):
-            out.append(OrderOverlap(order=k, wavelength_range_nm=(lo, hi), sensitive_range_nm=sensitive))
-    return tuple(out)
-
-
-def _line_table(model: GratingModel, medium: str, sens, efficiency, filters: FilterAdvice) -> pd.DataFrame:
-    catalogue = load_line_list(available_elements(), medium=medium)
-    wl = catalogue.wavelength_nm
-    n = model.n_pixels
-    m = model.order
-    top = float(np.max(model.wavelength(np.array([0.0, n - 1.0]))))
-    k_max = max(2 * m, math.ceil(m * top / float(wl.min())))
-    frames = []
-    for k in range(1, k_max + 1):
-        x = model.with_parameters(order=k).pixel(wl)
-        on = np.isfinite(x) & (x >= -0.5) & (x <= n - 0.5)
-        if not on.any():
-            continue
-        frames.append(pd.DataFrame({
-            "element": catalogue.element[on].astype(str),
-            "wavelength_nm": wl[on],
-            "order": np.full(on.sum(), k),
-            "x": x[on],
-            "apparent_wavelength_nm": model.wavelength(x[on]),
-            "intensity": catalogue.intensity[on],
-            "weak": catalogue.weak[on],
-            "blend": catalogue.blend[on],
-            "verified": catalogue.verified[on],
-            "efficiency": efficiency(wl[on], k),
-        }))
-    columns = ["element", "wavelength_nm", "order", "x", "apparent_wavelength_nm", "intensity",
-               "weak", "blend", "verified", "strong", "sensitive", "ghost", "filtered", "efficiency"]
-    if not frames:
-        return pd.DataFrame({c: [] for c in columns})
-    table = pd.concat(frames, ignore_index=True)
-    lam = table["wavelength_nm"].to_numpy()
-    blocked = np.zeros(len(table), bool)
-    if filters.cut_on_nm is not None:
-        blocked |= lam < filters.cut_on_nm
-    if filters.cut_off_nm is not None:
-        blocked |= lam > filters.cut_off_nm
-    table = table.assign(
-        strong=~table["weak"] & (table["intensity"] >= STRONG_INTENSITY),
-        sensitive=(lam >= sens[0]) & (lam <= sens[1]),
-        ghost=table["order"] != m,
-        filtered=blocked,
-    )
-    return table[columns].sort_values("x", kind="stable").reset_index(drop=True)
 
 
 def _prior_shift(profile: InstrumentProfile, model: GratingModel, centre_nm: float) -> float:
