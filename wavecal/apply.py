@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import argparse
 import hashlib
-import io
 import math
 import os
 import re
@@ -44,7 +43,7 @@ from ._stems import file_stem
 from ._version import __version__
 from ._atomic import atomic_path
 from .errors import FrameError, SolutionFileError, WavecalError
-from .frames import image_hdu_index
+from .frames import image_data, image_header, image_hdu_index, open_fits
 from .resample import (
     GRID_KINDS,
     WavelengthGrid,
@@ -448,27 +447,15 @@ def _read_bytes(path: Path, what: str, error: type[WavecalError]) -> bytes:
 
 def _read_frame(path: Path, raw: bytes, hdu: int | str | None, variance_hdu: int | str | None):
     """(data, header, variance or None) from the file's bytes (nothing is written anywhere)."""
-    try:
-        with fits.open(io.BytesIO(raw), mode="readonly", memmap=False) as hdul:
-            index = image_hdu_index(path, hdul, hdu)
-            data = np.array(hdul[index].data, copy=True)
-            header = hdul[index].header.copy()
-            if index != 0:
-                for card in hdul[0].header.cards:
-                    if card.keyword not in header and not _STRUCTURAL.match(card.keyword):
-                        header.append(card)
-            names = [h.name for h in hdul]
-            which = variance_hdu if variance_hdu is not None else (
-                "VARIANCE" if "VARIANCE" in names and index != names.index("VARIANCE") else None)
-            variance = None
-            if which is not None:
-                v_index = image_hdu_index(path, hdul, which)
-                variance = np.array(hdul[v_index].data, copy=True)
-    except FrameError:
-        raise
-    except (OSError, ValueError, TypeError, fits.VerifyError) as exc:
-        msg = f"{path}: cannot read FITS file: {exc}"
-        raise FrameError(msg) from None
+    with open_fits(path, content=raw) as hdul:
+        index = image_hdu_index(path, hdul, hdu)
+        data, header = image_data(path, hdul, index), image_header(hdul, index)
+        names = [h.name for h in hdul]
+        which = variance_hdu if variance_hdu is not None else (
+            "VARIANCE" if "VARIANCE" in names and index != names.index("VARIANCE") else None)
+        variance = None
+        if which is not None:
+            variance = image_data(path, hdul, image_hdu_index(path, hdul, which))
     while data.ndim > 2 and data.shape[0] == 1:
         data = data[0]
     if variance is not None and variance.size != data.size:

@@ -19,9 +19,12 @@ noise; the noise of the bias estimate is neglected).
 """
 from __future__ import annotations
 
+import io
 import logging
 import math
 import warnings
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -32,7 +35,8 @@ from astropy.io import fits
 from .errors import FrameError
 from .profile import InstrumentProfile
 
-__all__ = ["image_hdu_index", "Frame", "read_frame", "frame_from_array"]
+__all__ = ["open_fits", "image_hdu_index", "image_header", "image_data", "read_image", "Frame",
+           "read_frame", "frame_from_array"]
 
 _log = logging.getLogger(__name__)
 
@@ -148,10 +152,7 @@ def read_frame(path: str | Path, profile: InstrumentProfile, *, hdu: int | str |
     if not path.is_file():
         msg = f"{path}: file not found"
         raise FrameError(msg)
-    which = hdu if hdu is not None else profile.detector.hdu
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        raw, header = _read_image(path, which, caught)
+    raw, header = read_image(path, hdu if hdu is not None else profile.detector.hdu)
     return _build_frame(raw, header, profile, path=path, bias=bias, bad_pixels=bad_pixels)
 
 
@@ -192,39 +193,100 @@ def frame_from_array(data: np.ndarray, profile: InstrumentProfile, *,
 # Reading
 # ------------------------------------------------------------------------------------------------
 
-def _read_image(path: Path, which: int | str | None,
-                caught: list[warnings.WarningMessage]) -> tuple[np.ndarray, fits.Header]:
-    """Data (a copy, scaled to physical ADU) and merged header of the image HDU."""
-    try:
-        with path.open("rb") as fh, fits.open(fh, mode="readonly", memmap=False,
-                                              lazy_load_hdus=False) as hdul:
-            _raise_if_truncated(path, caught)
-            index = image_hdu_index(path, hdul, which)
-            image = hdul[index]
-            try:
-                data = image.data
-            except (ValueError, OSError, TypeError) as exc:
-                msg = (f"{path}: cannot read the image data of HDU {index} "
-                       f"(truncated or corrupt file?): {exc}")
-                raise FrameError(msg) from None
-            _raise_if_truncated(path, caught)
-            data = np.array(data, copy=True)
-            header = image.header.copy()
-            if index != 0:
-                for card in hdul[0].header.cards:
-                    if card.keyword not in _STRUCTURAL and card.keyword not in header:
-                        header.append(card)
-    except FrameError:
-        raise
-    except (OSError, ValueError, fits.VerifyError) as exc:
-        if "SIMPLE" in str(exc) or path.stat().st_size == 0 or "Empty or corrupt" in str(exc):
-            msg = f"{path}: not a FITS file (or its header is truncated or corrupt): {exc}"
-        else:
-            msg = f"{path}: cannot read FITS file: {exc}"
-        raise FrameError(msg) from None
+@contextmanager
+def open_fits(path: str | Path, *, content: bytes | None = None) -> Iterator[fits.HDUList]:
+    """Open a FITS file read-only (every HDU header scanned, no memory mapping).
+
+    Parameters
+    ----------
+    path : str or Path
+        The file; named in every error.
+    content : bytes, optional
+        The file's bytes when the caller has read them already (they are parsed instead of
+        opening ``path`` again).
+
+    Yields
+    ------
+    astropy.io.fits.HDUList
+
+    Raises
+    ------
+    FrameError
+        Naming the file: not FITS, truncated or corrupt, unreadable (also for such errors raised
+        while the caller reads the HDUs inside the ``with`` block).
+    """
+    path = Path(path)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            with (io.BytesIO(content) if content is not None else path.open("rb")) as fh, \
+                    fits.open(fh, mode="readonly", memmap=False, lazy_load_hdus=False) as hdul:
+                _raise_if_truncated(path, caught)
+                yield hdul
+                _raise_if_truncated(path, caught)
+        except FrameError:
+            raise
+        except (OSError, ValueError, TypeError, fits.VerifyError) as exc:
+            empty = (len(content) if content is not None else path.stat().st_size) == 0
+            if "SIMPLE" in str(exc) or empty or "Empty or corrupt" in str(exc):
+                msg = f"{path}: not a FITS file (or its header is truncated or corrupt): {exc}"
+            else:
+                msg = f"{path}: cannot read FITS file: {exc}"
+            raise FrameError(msg) from None
     for w in caught:
         _log.debug("%s: %s", path, w.message)
-    return data, header
+
+
+def image_header(hdul: fits.HDUList, index: int) -> fits.Header:
+    """Header of HDU ``index`` (a copy) with the primary header's non-structural cards it lacks."""
+    header = hdul[index].header.copy()
+    if index != 0:
+        for card in hdul[0].header.cards:
+            if card.keyword not in _STRUCTURAL and card.keyword not in header:
+                header.append(card)
+    return header
+
+
+def image_data(path: str | Path, hdul: fits.HDUList, index: int) -> np.ndarray:
+    """The data of image HDU ``index`` (a copy, scaled by ``BZERO``/``BSCALE``)."""
+    try:
+        return np.array(hdul[index].data, copy=True)
+    except (ValueError, OSError, TypeError) as exc:
+        msg = (f"{path}: cannot read the image data of HDU {index} "
+               f"(truncated or corrupt file?): {exc}")
+        raise FrameError(msg) from None
+
+
+def read_image(path: str | Path, hdu: int | str | None = None, *,
+               content: bytes | None = None) -> tuple[np.ndarray, fits.Header]:
+    """The image of a FITS file as stored: data and header, nothing subtracted or converted.
+
+    The one way wavecal reads FITS images (:func:`read_frame` builds on it).
+
+    Parameters
+    ----------
+    path : str or Path
+        The file (opened read-only, closed before returning, never modified).
+    hdu : int or str, optional
+        HDU (index or EXTNAME); default the first HDU holding 1-D or 2-D image data.
+    content : bytes, optional
+        The file's bytes, when already read.
+
+    Returns
+    -------
+    data : ndarray
+        A copy, scaled to physical values by astropy.
+    header : astropy.io.fits.Header
+        The image HDU's header with the primary header's non-structural cards it lacks.
+
+    Raises
+    ------
+    FrameError
+        Naming the file: not FITS, truncated or corrupt, or no such image HDU.
+    """
+    with open_fits(path, content=content) as hdul:
+        index = image_hdu_index(Path(path), hdul, hdu)
+        return image_data(path, hdul, index), image_header(hdul, index)
 
 
 def _raise_if_truncated(path: Path, caught: list[warnings.WarningMessage]) -> None:

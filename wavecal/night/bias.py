@@ -1,7 +1,6 @@
 """Master bias: the sigma-clipped median of the night's bias frames."""
 from __future__ import annotations
 
-import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -12,7 +11,7 @@ from astropy.stats import sigma_clip
 
 from .._atomic import atomic_path
 from ..errors import FrameError, WavecalError
-from ..frames import read_frame
+from ..frames import read_frame, read_image
 from ..profile import InstrumentProfile
 
 __all__ = ["BiasCheck", "bias_tolerance_adu", "check_master_bias", "combine_bias",
@@ -20,18 +19,11 @@ __all__ = ["BiasCheck", "bias_tolerance_adu", "check_master_bias", "combine_bias
 
 
 def _raw(path: Path) -> np.ndarray:
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            with fits.open(path, memmap=False) as hdul:
-                hdu = next((h for h in hdul if h.data is not None and h.data.ndim == 2), None)
-                if hdu is None:
-                    msg = f"{path}: no 2-D image"
-                    raise FrameError(msg)
-                return np.asarray(hdu.data, dtype=np.float32)
-    except (OSError, ValueError, TypeError) as exc:
-        msg = f"{path}: cannot read the bias frame ({exc})"
-        raise FrameError(msg) from None
+    data, _ = read_image(path)
+    if data.ndim != 2:
+        msg = f"{path}: no 2-D image"
+        raise FrameError(msg)
+    return np.asarray(data, dtype=np.float32)
 
 
 def combine_bias(paths: Sequence[str | Path], *, sigma: float = 3.0
@@ -90,8 +82,8 @@ def write_master_bias(master: np.ndarray, path: str | Path, sources: Sequence[st
 
 def read_master_bias(path: str | Path) -> np.ndarray:
     """A master bias written by :func:`write_master_bias`."""
-    with fits.open(path, memmap=False) as hdul:
-        return np.asarray(hdul[0].data, dtype=np.float32)
+    data, _ = read_image(path, 0)
+    return np.asarray(data, dtype=np.float32)
 
 
 def bias_tolerance_adu(profile: InstrumentProfile) -> float:

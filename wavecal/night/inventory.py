@@ -10,7 +10,6 @@ import math
 import os
 import re
 import stat
-import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -20,6 +19,7 @@ from astropy.io import fits
 from astropy.time import Time
 
 from ..errors import WavecalError
+from ..frames import image_hdu_index, image_header, open_fits
 from ..profile import InstrumentProfile
 from .._stems import file_stem
 
@@ -265,40 +265,9 @@ def classify(header: Mapping, profile: InstrumentProfile | None) -> str:
 
 
 def _read_header(path: Path, profile_hdu: int | str | None) -> fits.Header:
-    """Primary header merged with the image extension's; checks the file holds all its data."""
-    size = path.stat().st_size
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        header = _headers(path, size, profile_hdu)
-    if any("truncated" in str(w.message) for w in caught):
-        msg = f"{path}: truncated FITS file ({size} bytes)"
-        raise WavecalError(msg)
-    return header
-
-
-def _headers(path: Path, size: int, profile_hdu: int | str | None) -> fits.Header:
-    with fits.open(path, memmap=False, lazy_load_hdus=True) as hdul:
-        header = hdul[0].header.copy()
-        index = profile_hdu if profile_hdu is not None else (
-            0 if header.get("NAXIS", 0) else 1)
-        info = hdul.fileinfo(0)
-        if info is not None and info["datLoc"] + hdul[0].size > size:
-            msg = f"{path}: truncated FITS file ({size} bytes, the primary HDU needs more)"
-            raise WavecalError(msg)
-        if index != 0:
-            try:
-                ext = hdul[index]
-            except (IndexError, KeyError):
-                msg = f"{path}: no image HDU {index!r}"
-                raise WavecalError(msg) from None
-            info = hdul.fileinfo(hdul.index_of(index) if isinstance(index, str) else index)
-            if info is not None and info["datLoc"] + ext.size > size:
-                msg = f"{path}: truncated FITS file ({size} bytes, HDU {index!r} needs more)"
-                raise WavecalError(msg)
-            for card in ext.header.cards:
-                if card.keyword not in header or card.keyword in ("NAXIS", "NAXIS1", "NAXIS2"):
-                    header[card.keyword] = card.value
-    return header
+    """Merged header of the image HDU (:func:`wavecal.frames.image_header`); no data is read."""
+    with open_fits(path) as hdul:
+        return image_header(hdul, image_hdu_index(path, hdul, profile_hdu))
 
 
 def _select_profile(header: fits.Header, profiles: Mapping[str, InstrumentProfile],

@@ -111,7 +111,7 @@ def make_night(root: str | Path, *, seed: int = 7, n_arcs: int = 4, n_science: i
         path.write_bytes(path.read_bytes()[:40000])
         bad["bad_truncated.fits"] = "truncated"
         (root / "bad_notfits.fits").write_text("this is not a FITS file\n")
-        bad["bad_notfits.fits"] = "not a readable FITS file"
+        bad["bad_notfits.fits"] = "not a FITS file"
         h = some_arc.header.copy()
         fits.PrimaryHDU(np.full(some_arc.data.shape, np.nan, np.float32), h).writeto(
             root / "bad_nan.fits")
