@@ -22,16 +22,9 @@ from astropy.wcs import WCS
 from scipy.optimize import brentq
 
 import wavecal
-from wavecal.apply import (
-    FLAG_BAD_INPUT,
-    FLAG_EXTRAPOLATED,
-    FLAG_NO_DATA,
-    add_apply_arguments,
-    apply_solution,
-    calibrate_image,
-    run_apply_command,
-)
+from wavecal.apply import add_apply_arguments, apply_solution, run_apply_command
 from wavecal.calibrate import calibrate_frame
+from wavecal.calibrated import FLAG_BAD_INPUT, FLAG_EXTRAPOLATED, FLAG_NO_DATA, calibrate_image
 from wavecal.errors import FrameError, SolutionFileError
 from wavecal.optics import GratingModel
 from wavecal.profile import load_profile

@@ -18,7 +18,7 @@ import pytest
 from astropy.io import fits
 from astropy.wcs import WCS
 
-from wavecal.apply import FLAG_EXTRAPOLATED
+from wavecal.calibrated import FLAG_EXTRAPOLATED
 from wavecal.night import build_inventory, run_night
 from wavecal.night.synthetic import make_night
 

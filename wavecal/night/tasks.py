@@ -17,7 +17,7 @@ from astropy.io import fits
 
 from .._version import __version__
 from .._atomic import atomic_path, atomic_write_text
-from ..apply import calibrate_image
+from ..calibrated import calibrate_image
 from ..calibrate import calibrate_frame
 from ..frames import read_frame
 from ..profile import InstrumentProfile
