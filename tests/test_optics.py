@@ -9,7 +9,7 @@ Sources named beside the check values:
   by WCSLIB inside astropy.wcs): the reflection-grating worked example (§2) and the MARS grism
   check values (§1, WCSLIB's ``tspc.c`` case of Paper III Fig. 5).
 * astropy.wcs itself, run live: a ``-GRI``/``-GRA`` header built from a :class:`GratingModel`
-  by :func:`wavecal.wcs.grating_header` must give the same wavelength as the model at every pixel.
+  by :func:`wavecal.wcs_grating.grating_header` must give the same wavelength as the model at every pixel.
 """
 from __future__ import annotations
 
@@ -30,7 +30,7 @@ from wavecal.optics import (
     resolving_power,
     wavelength_from_angles,
 )
-from wavecal.wcs import grating_header
+from wavecal.wcs_grating import grating_header
 
 
 def _wcs_wavelength_nm(header: fits.Header, x) -> np.ndarray:

@@ -29,14 +29,13 @@ from wavecal.resample import linear_grid, log_grid, user_grid
 from wavecal.solution import Solution
 from wavecal.wcs import (
     AIRVAC_WAVECAL,
-    AIRVAC_WCSLIB,
     GRATING_TOLERANCE_PX,
     TABLE_EXTNAME,
-    grating_header,
     grid_wcs,
     solution_wcs,
     table_wcs,
 )
+from wavecal.wcs_grating import AIRVAC_WCSLIB, grating_header
 
 # The reflection-grating worked example of fits-wcs-grating.md §2 (1200/mm, 4096 px).
 WORKED = GratingModel(mount="reflection", grooves_per_mm=1200.0, order=1, grating_angle_deg=20.0,
