@@ -516,7 +516,7 @@ def test_json_round_trip_and_atomic_write(tmp_path):
     assert "NaN" not in text
     data = json.loads(text)
     assert data == json.loads(json.dumps(plan.summary()))
-    assert data["schema"] == "wavecal-plan/1"
+    assert (data["schema"], data["schema_version"]) == ("wavecal-plan", 2)
     assert data["points"][1]["wavelength_nm"] == pytest.approx(760.0, abs=1e-6)
     assert len(data["lines"]) == len(plan.lines)
     assert [r["lamps"] for r in data["recommended"]] == [list(s.lamps) for s in plan.recommended]

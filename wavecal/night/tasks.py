@@ -26,9 +26,8 @@ from ..solution import load_solution
 from .bias import read_master_bias
 from .drift import shifted_solution
 
-__all__ = ["sha256_file", "read_manifest", "write_manifest", "verify_products", "arc_products",
-           "arc_task",
-           "science_task"]
+__all__ = ["MANIFEST_SCHEMA", "MANIFEST_SCHEMA_VERSION", "sha256_file", "read_manifest",
+           "write_manifest", "verify_products", "arc_products", "arc_task", "science_task"]
 
 
 def sha256_file(path: str | Path | None) -> str:
@@ -38,12 +37,20 @@ def sha256_file(path: str | Path | None) -> str:
     return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
+#: ``schema`` and ``schema_version`` of a manifest (every wavecal JSON file carries the pair).
+MANIFEST_SCHEMA, MANIFEST_SCHEMA_VERSION = "wavecal-night-manifest", 1
+
+
 def read_manifest(path: Path) -> dict[str, Any] | None:
-    """A product's manifest, or None when missing or unreadable."""
+    """A product's manifest, or None when missing, unreadable or of another schema (manifests
+    written before the schema pair existed are read)."""
     try:
-        return json.loads(path.read_text(encoding="utf-8"))
+        found = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, ValueError):
         return None
+    if not isinstance(found, dict) or found.get("schema", MANIFEST_SCHEMA) != MANIFEST_SCHEMA:
+        return None
+    return found
 
 
 def write_manifest(path: Path, key: dict[str, Any], result: dict[str, Any],
@@ -51,7 +58,9 @@ def write_manifest(path: Path, key: dict[str, Any], result: dict[str, Any],
     """Write a manifest (after its products): the inputs' ``key``, the task's ``result`` and the
     SHA-256 of each product file (by file name)."""
     checksums = {Path(p).name: sha256_file(p) for p in products}
-    atomic_write_text(path, json.dumps({"key": key, "result": result, "software": __version__,
+    atomic_write_text(path, json.dumps({"schema": MANIFEST_SCHEMA,
+                                        "schema_version": MANIFEST_SCHEMA_VERSION,
+                                        "key": key, "result": result, "software": __version__,
                                         "checksums": checksums},
                                        indent=1, allow_nan=True) + "\n")
 

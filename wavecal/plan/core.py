@@ -59,7 +59,8 @@ _DEFAULT_LINE_WIDTH_PX = 3.0
 _N_RECOMMENDED = 10
 #: Blaze efficiency below which the plan warns that lines will be faint.
 _FAINT_EFFICIENCY = 0.3
-_SCHEMA = "wavecal-plan/1"
+#: ``schema`` and ``schema_version`` of the plan JSON (every wavecal JSON file carries the pair).
+_SCHEMA, _SCHEMA_VERSION = "wavecal-plan", 2
 
 
 class PlanningError(WavecalError, ValueError):
@@ -257,6 +258,7 @@ class SetupPlan:
         model = self.model
         return {
             "schema": _SCHEMA,
+            "schema_version": _SCHEMA_VERSION,
             "instrument": self.profile_name,
             "profile": self.profile_source,
             "mount": self.mount,
