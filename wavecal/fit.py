@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 import lmfit
 import numpy as np
+from astropy.stats import mad_std
 from scipy import optimize
 
 from .model_setup import PriorBox
@@ -242,7 +243,7 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
                 break
             result, model = run(model, degree, keep)
             norm = (x - model.pixel(lam)) / sigma_px
-            scale = max(1.4826 * np.median(np.abs(norm[keep] - np.median(norm[keep]))), 1.0)
+            scale = max(float(mad_std(norm[keep])), 1.0)
             new_keep = allowed & (np.abs(norm) <= clip * scale)
             if np.array_equal(new_keep, keep) or np.count_nonzero(new_keep) < floor:
                 break
