@@ -25,7 +25,7 @@ from wavecal.plan import (
     scalar_blaze_efficiency,
     solve_grating_angle,
 )
-from wavecal.plan_cli import add_plan_arguments, run_plan_command
+from wavecal.cli.plan import add_plan_arguments, run_plan_command
 from wavecal.plan_lamps import score_lamps
 from wavecal.plan_plot import save_plan_plot
 from wavecal.profile import load_profile, profile_from_dict

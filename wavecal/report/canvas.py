@@ -116,7 +116,9 @@ def _marker_mask(shape: str, size_px: float, filled: bool, width_px: float) -> I
         q = r * 0.85
         draw.rectangle((c - q, c - q, c + q, c + q), fill=inner, outline=255, width=w)
     else:
-        points = {"D": ((c, c - r), (c + r, c), (c, c + r), (c - r, c)),
+        hexagon = tuple((c + r * np.cos(a), c + r * np.sin(a))
+                        for a in np.radians(np.arange(0, 360, 60)))
+        points = {"D": ((c, c - r), (c + r, c), (c, c + r), (c - r, c)), "h": hexagon,
                   "^": ((c, c - r), (c + r, c + 0.8 * r), (c - r, c + 0.8 * r)),
                   "v": ((c, c + r), (c + r, c - 0.8 * r), (c - r, c - 0.8 * r))}[shape]
         draw.polygon(points, fill=inner, outline=255, width=w)
@@ -198,7 +200,7 @@ class Canvas:
     def markers(self, x, y, shape: str, colour: str, *, size: float = 7.0,
                 filled: bool = True, width: float = 1.2) -> None:
         """Markers of ``size`` pixels at ``(x, y)``: ``shape`` is one of ``o`` (circle),
-        ``s`` (square), ``D`` (diamond), ``^``/``v`` (triangles), ``x`` (cross)."""
+        ``s`` (square), ``D`` (diamond), ``h`` (hexagon), ``^``/``v`` (triangles), ``x`` (cross)."""
         mask = _marker_mask(shape, size * self.scale, filled, width * self.scale)
         half = mask.size[0] / 2
         rgb = _rgba(colour, 1.0)[:3]

@@ -17,6 +17,7 @@ import numpy as np
 from .._atomic import atomic_write_bytes, atomic_write_text
 from ..peaks import describe_flags
 from ..solution import Solution, _jsonable
+from ..status import Status
 from . import figures
 from .html import esc, fmt, image, page, status_badge, table
 
@@ -76,9 +77,9 @@ def frame_facts(solution: Solution) -> dict[str, Any]:
 
 
 def _verdict_html(solution: Solution, facts: dict[str, Any]) -> str:
-    words = {"ok": "This solution can be trusted.",
-             "suspect": "This solution may be usable but needs a look:",
-             "failed": "No usable solution was found:"}
+    words = {Status.OK: "This solution can be trusted.",
+             Status.SUSPECT: "This solution may be usable but needs a look:",
+             Status.FAILED: "No usable solution was found:"}
     reasons = "".join(f"<li>{esc(r)}</li>" for r in solution.reasons)
     moved = [p for p in facts["parameters"] if p["large_shift"]]
     warn = "".join(
