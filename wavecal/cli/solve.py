@@ -8,7 +8,7 @@ import time
 from pathlib import Path
 
 from ..errors import FrameError, WavecalError
-from ..status import ExitCode, exit_code_for
+from ..status import ExitCode, Status, exit_code_for
 from ..validation import GRATING_ANGLE, Real, option_type
 
 __all__ = ["add_solve_arguments", "add_demo_arguments", "run_solve_command", "run_demo_command"]
@@ -86,7 +86,7 @@ def _read_arc(frame: Path, profile, rows: tuple[int, int] | None):
     return arc
 
 
-def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> str:
+def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Status:
     """Solve and write one frame, print its summary; returns its status."""
     from ..solve import solve_and_write
     from ..summary_text import format_summary

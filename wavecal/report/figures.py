@@ -34,7 +34,7 @@ SERIES = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0
 #: How each kind of peak is marked: (marker, colour, filled).
 PEAK_STYLES = {"used": ("v", PALETTE["used"], True), "rejected": ("s", PALETTE["rejected"], False),
                "extra": ("^", PALETTE["extra"], False), "ghost": ("o", PALETTE["ghost"], False),
-               "unidentified": ("h", PALETTE["unidentified"], False)}
+               "unidentified": ("|", PALETTE["unidentified"], False)}
 _WIDTH = 1100
 #: Below this spread of the line shift over the slit (px) the slit map says it is flat.
 FLAT_SLIT_PX = 0.01
@@ -261,22 +261,21 @@ def quality_figure(solution: Solution) -> Canvas:
     n = solution.model.n_pixels if solution.model is not None else None
     xlim = (0.0, n - 1.0) if n else limits(x)
     panel = Panel(canvas, boxes[1], xlim, limits(fwhm, include=(0.0,)))
-    panel.points(x[~used], fwhm[~used], "x", PALETTE["unidentified"], size=6)
+    panel.points(x[~used], fwhm[~used], "|", PALETTE["unidentified"], size=6)
     panel.points(x[used], fwhm[used], "o", PALETTE["used"], size=6)
     panel.finish(xlabel="pixel along dispersion", ylabel="FWHM (px)", title="line width")
     if solution.model is not None and x.size:
         lam = np.asarray(solution.wavelength(x), dtype=float)
         power = lam / (np.abs(np.asarray(solution.model.dispersion(x), dtype=float)) * fwhm)
         panel = Panel(canvas, boxes[2], xlim, limits(power, include=(0.0,)))
-        panel.points(x[~used], power[~used], "h", PALETTE["unidentified"], size=6, filled=False)
+        panel.points(x[~used], power[~used], "|", PALETTE["unidentified"], size=6)
         panel.points(x[used], power[used], "o", PALETTE["used"], size=6)
     else:
         panel = Panel(canvas, boxes[2], xlim, (0.0, 1.0))
         panel.message("no wavelength scale")
     panel.finish(xlabel="pixel along dispersion", ylabel="λ/Δλ", title="resolving power")
     legend(canvas, _WIDTH - 15, 8, [({"marker": "o", "colour": PALETTE["used"]}, "used lines"),
-                                    ({"marker": "h", "colour": PALETTE["unidentified"],
-                                      "filled": False},
+                                    ({"marker": "|", "colour": PALETTE["unidentified"]},
                                      "other peaks")], align="right")
     return canvas
 
