@@ -22,9 +22,10 @@ from astropy.wcs import WCS
 from scipy.optimize import brentq
 
 import wavecal
-from wavecal.apply import add_apply_arguments, apply_solution, run_apply_command
+from wavecal.apply import apply_solution
 from wavecal.calibrate import calibrate_frame
 from wavecal.calibrated import FLAG_BAD_INPUT, FLAG_EXTRAPOLATED, FLAG_NO_DATA, calibrate_image
+from wavecal.cli.apply import add_apply_arguments, run_apply_command
 from wavecal.errors import FrameError, SolutionFileError
 from wavecal.optics import GratingModel
 from wavecal.profile import load_profile
@@ -136,7 +137,7 @@ def test_wcs_only_output_of_a_simulated_arc(arc, tmp_path):
         history = [str(v) for v in head["HISTORY"]]
         assert hdul[0].verify_checksum() == 1
     # provenance: solution file name and SHA-256, software version
-    assert head["WCSOLFIL"] == "arc.solution.json" and head["WCSOLSHA"] == sha256(solution_path)
+    assert head["WCARCFIL"] == "arc.solution.json" and head["WCARCSHA"] == sha256(solution_path)
     assert f"sha256 {sha256(solution_path)}" in history
     assert "solution file: arc.solution.json" in history
     assert any(f"wavecal {wavecal.__version__}" in line for line in history)

@@ -24,7 +24,7 @@ import numpy as np
 import pytest
 from astropy.io import fits
 
-from wavecal.cli import main
+from wavecal.cli.main import main
 from wavecal.profile import example_profile_paths
 
 DATA = Path(__file__).parent / "data"

@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 
 from wavecal.night import run_night
-from wavecal.night.command import add_night_arguments, run_night_command
+from wavecal.cli.night import add_night_arguments, run_night_command
 from wavecal.night.progress import Progress
 from wavecal.night.synthetic import make_night
 

@@ -46,7 +46,7 @@ def night(tmp_path_factory):
 def result(night, tmp_path_factory):
     before = checksums(night.root)
     out = tmp_path_factory.mktemp("out")
-    res = run_night(night.root, night.profile, out, policy="interpolate")
+    res = run_night(night.root, night.profile, out, policy="follow-drift")
     assert checksums(night.root) == before  # the raw files are untouched
     return res
 
@@ -132,11 +132,11 @@ def test_calibrated_science_wcs_matches_the_truth(result, night):
 
 
 def test_rerun_is_up_to_date_and_redo_remakes(result, night):
-    again = run_night(night.root, night.profile, result.out_dir, policy="interpolate")
+    again = run_night(night.root, night.profile, result.out_dir, policy="follow-drift")
     assert again.n_made == 0
     pd.testing.assert_frame_equal(again.summary.drop(columns="made"),
                                   result.summary.drop(columns="made"))
-    redo = run_night(night.root, night.profile, result.out_dir, policy="interpolate", redo=True)
+    redo = run_night(night.root, night.profile, result.out_dir, policy="follow-drift", redo=True)
     assert redo.n_made == result.n_made > 0
 
 

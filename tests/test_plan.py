@@ -18,13 +18,13 @@ import pytest
 from wavecal.extract import extract_spectrum
 from wavecal.frames import frame_from_array
 from wavecal.peaks import find_peaks
+from wavecal.cli.plan import add_plan_arguments, run_plan_command
 from wavecal.model_setup import nominal_model
 from wavecal.optics import scalar_blaze_efficiency, solve_grating_angle
 from wavecal.plan import PlanningError, clean_range, plan_setup
 from wavecal.plan.lamps import score_lamps
 from wavecal.plan.plot import save_plan_plot
 from wavecal.plan.text import format_plan
-from wavecal.plan_cli import add_plan_arguments, run_plan_command
 from wavecal.profile import load_profile, profile_from_dict
 from wavecal.simulate import simulate_arc
 

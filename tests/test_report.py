@@ -14,7 +14,7 @@ from wavecal.frames import frame_from_array
 from wavecal.night.synthetic import night_profile
 from wavecal.report import (load_spectrum, save_spectrum, spectrum_path, write_frame_report,
                             write_night_report)
-from wavecal.report.command import add_report_arguments, run_report_command
+from wavecal.cli.report import add_report_arguments, run_report_command
 from wavecal.simulate import simulate_arc
 from wavecal.solution import load_solution
 

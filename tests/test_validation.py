@@ -53,7 +53,7 @@ HEAVY = ("pandas", "scipy", "astropy", "lmfit", "matplotlib")
 
 @pytest.mark.parametrize("argv", [["--help"], ["--version"], ["solve", "--help"]])
 def test_start_up_imports_nothing_heavy(argv):
-    code = (f"import sys\nimport wavecal\nfrom wavecal.cli import main\n"
+    code = (f"import sys\nimport wavecal\nfrom wavecal.cli.main import main\n"
             f"try:\n    main({argv!r})\nexcept SystemExit:\n    pass\n"
             f"print(sorted(m for m in {HEAVY!r} if m in sys.modules))")
     run = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,

@@ -30,6 +30,7 @@ from .profile import InstrumentProfile
 from .slit import SlitMeasurement, SlitShift, measure_slit, profile_slit_rows
 from .constants import SPEED_OF_LIGHT_KMS
 from .solution import Solution
+from .status import Status
 from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 
 __all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS", "ANCHOR_SIGMA_PX", "LINE_UNCERTAINTY_VERIFIED_NM",
@@ -452,7 +453,7 @@ def _failed(profile, frame, lamps, table: pd.DataFrame, reasons) -> Solution:
         "line_intensity": np.nan, "line_verified": False, "wavelength_fit": np.nan,
         "residual_px": np.nan, "residual_nm": np.nan, "residual_kms": np.nan, "sigma_px": np.nan,
     })
-    return Solution(status="failed", reasons=tuple(reasons), medium=profile.medium, model=None,
+    return Solution(status=Status.FAILED, reasons=tuple(reasons), medium=profile.medium, model=None,
                     lines=lines, statistics={"n_peaks": int(len(table)), "n_used": 0},
                     frame=str(frame.path) if frame.path else None, profile=profile.name,
                     lamps=tuple(lamps), dispersion_axis=profile.detector.dispersion_axis,

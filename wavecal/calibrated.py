@@ -72,9 +72,9 @@ _WCS_KEY = re.compile(
     r"CSYER\d+|PC\d+_\d+|CD\d+_\d+|PV\d+_\d+|PS\d+_\d+|LONPOLE|LATPOLE|RESTFRQ|RESTWAV|SPECSYS|"
     r"SSYSOBS|VELOSYS|MJDREF|MJD-OBS)[A-Z]?$")
 #: Keywords this module writes (removed from an input header that already has them).
-_OWN_KEYS = frozenset({"WCMEDIUM", "WCAIRVAC", "WCALGOR", "WCMAXERR", "WCRESAMP", "WCSOLSTA",
-                       "WCCOVLO", "WCCOVHI", "WCLAMLO", "WCLAMHI", "WCORIGX", "WCVERS", "WCSOLFIL",
-                       "WCSOLSHA", "WCINFIL", "WCFLAG1", "WCFLAG2", "WCFLAG4"})
+_OWN_KEYS = frozenset({"WCMEDIUM", "WCAIRVAC", "WCALGOR", "WCMAXERR", "WCRESAMP", "WCARCSTA",
+                       "WCCOVLO", "WCCOVHI", "WCLAMLO", "WCLAMHI", "WCORIGX", "WCVERS", "WCARCFIL",
+                       "WCARCSHA", "WCINFIL", "WCFLAG1", "WCFLAG2", "WCFLAG4"})
 
 
 
@@ -328,7 +328,7 @@ def _hdus(data: np.ndarray, variance: np.ndarray | None, flags: np.ndarray, wcs:
     if math.isfinite(wcs.max_error_px):
         info["WCMAXERR"] = (float(f"{wcs.max_error_px:.3g}"), "[px] max |WCS - solution|, every pixel")
     info["WCRESAMP"] = ("none" if grid is None else grid.kind, "resampled onto a grid?")
-    info["WCSOLSTA"] = (solution.status, "verdict of the solution")
+    info["WCARCSTA"] = (solution.status, "verdict of the solution")
     for key, value, what in (("WCCOVLO", lo, "first"), ("WCCOVHI", hi, "last")):
         if math.isfinite(value):
             info[key] = (float(value), f"{what} raw px (0-based) covered by lines")

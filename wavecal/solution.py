@@ -46,6 +46,7 @@ from .airvac import air_to_vacuum, vacuum_to_air
 from .fit import wavelength_sigma
 from .optics import GratingModel
 from .slit import SlitShift
+from .status import Status
 
 __all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "READABLE_VERSIONS", "STATUSES"]
 
@@ -54,7 +55,7 @@ SCHEMA_VERSION = 2
 #: Versions :func:`load_solution` reads.
 READABLE_VERSIONS = (1, 2)
 #: Possible verdicts, from best to worst.
-STATUSES = ("ok", "suspect", "failed")
+STATUSES = tuple(s.value for s in (Status.OK, Status.SUSPECT, Status.FAILED))
 
 #: Columns of :attr:`Solution.lines`, in order.
 LINE_COLUMNS = (
@@ -70,7 +71,7 @@ class Solution:
 
     Attributes
     ----------
-    status : str
+    status : Status
         ``"ok"``, ``"suspect"`` or ``"failed"``.
     reasons : tuple of str
         Plain-language reasons behind the status (empty for a clean ``ok``).
@@ -105,7 +106,7 @@ class Solution:
         single-row solution or when the slit was not traced.
     """
 
-    status: str
+    status: Status
     reasons: tuple[str, ...]
     medium: str
     model: GratingModel | None
@@ -223,7 +224,7 @@ class Solution:
     @property
     def ok(self) -> bool:
         """True only for an ``ok`` verdict."""
-        return self.status == "ok"
+        return self.status == Status.OK
 
     @property
     def rms_px(self) -> float:
@@ -341,7 +342,7 @@ def _checked(data: Any, path: Path) -> dict[str, Any]:
                                     required=tuple(k for k in MODEL_RULES if k not in (
                                         "tilt_deg", "direction", "distortion") and not
                                                    k.startswith("prism")))
-    elif data["status"] != "failed":
+    elif data["status"] != Status.FAILED:
         msg = f"{path}: status {data['status']!r} but no model (only a failed solution has none)"
         raise SolutionFileError(msg)
     lines = check_table(data["lines"], {c: Sequence(_LINE_RULES[c]) for c in LINE_COLUMNS},
@@ -413,7 +414,7 @@ def load_solution(path: str | Path) -> Solution:
         corr = data.get("correlation") or {}
         slit = data.get("slit")
         return Solution(
-            status=data["status"],
+            status=Status(data["status"]),
             reasons=tuple(data["reasons"]),
             medium=data["medium"],
             model=model,

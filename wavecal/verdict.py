@@ -20,7 +20,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-import numpy as np
+
+from .status import Status
 
 __all__ = ["Verdict", "judge", "VerdictInputs", "MIN_LINES_FAILED", "SIGNIFICANCE_MARGIN_FAILED",
            "SIGNIFICANCE_MARGIN_OK", "MAX_SIGMA_PX_OK", "MAX_SCATTER_FWHM_OK",
@@ -102,7 +103,7 @@ class VerdictInputs:
 class Verdict:
     """Status and the reasons behind it."""
 
-    status: str
+    status: Status
     reasons: tuple[str, ...]
 
 
@@ -128,7 +129,7 @@ def judge(facts: VerdictInputs) -> Verdict:
     if not facts.fit_success:
         failed.append("the fit did not converge")
     if failed:
-        return Verdict("failed", tuple(failed))
+        return Verdict(Status.FAILED, tuple(failed))
 
     if facts.ambiguous and facts.rival_log10_chance is not None:
         doubts.append("ambiguous identification: a different solution is nearly as likely "
@@ -156,4 +157,4 @@ def judge(facts: VerdictInputs) -> Verdict:
             if abs(shift) > MAX_PRIOR_SHIFT_OK:
                 doubts.append(f"{name.replace('_', ' ')} moved {abs(shift):.1f} prior widths from "
                               "its nominal value: the instrument or its header may be off")
-    return Verdict("suspect" if doubts else "ok", tuple(doubts))
+    return Verdict(Status.SUSPECT if doubts else Status.OK, tuple(doubts))

@@ -40,7 +40,6 @@ from typing import Any
 
 import numpy as np
 from astropy.io import fits
-from astropy.wcs import WCS
 
 from .resample import WavelengthGrid
 from .wcs_grating import evaluate_1d, grating_candidate, physical_approximation, spectral_ctype

@@ -62,7 +62,7 @@ def main() -> None:
         for label, kw in (("1 worker", {"workers": 1}), ("2 workers", {"workers": 2})):
             out = tmp / f"out{len(rates)}"
             t = time.perf_counter()
-            res = run_night(night.root, night.profile, out, policy="interpolate", **kw)
+            res = run_night(night.root, night.profile, out, policy="follow-drift", **kw)
             dt = time.perf_counter() - t
             rates[label] = n_frames / dt
             print(f"(b) {n_frames}-frame night, {label}: {dt:.1f} s = {rates[label]:.2f} frames/s "
@@ -74,7 +74,7 @@ def main() -> None:
             with LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                               host="127.0.0.1", dashboard_address=None) as cluster:
                 t = time.perf_counter()
-                res = run_night(night.root, night.profile, tmp / "outdask", policy="interpolate",
+                res = run_night(night.root, night.profile, tmp / "outdask", policy="follow-drift",
                                 scheduler=cluster.scheduler_address)
                 dt = time.perf_counter() - t
             print(f"(c) {n_frames}-frame night, local Dask cluster of 2 workers: {dt:.1f} s = "

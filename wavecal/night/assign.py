@@ -1,5 +1,6 @@
-"""Choosing the solution for each science frame: nearest arc in time, or a drift-corrected
-interpolation between the two arcs that bracket it."""
+"""Choosing the solution for each science frame: the closest arc in time (policy
+``closest-arc``), or that arc moved by the drift interpolated between the two arcs that bracket
+it (policy ``follow-drift``)."""
 from __future__ import annotations
 
 import math
@@ -10,7 +11,7 @@ import numpy as np
 
 __all__ = ["POLICIES", "ArcPoint", "Assignment", "assign"]
 
-POLICIES = ("nearest", "interpolate")
+POLICIES = ("closest-arc", "follow-drift")
 
 
 @dataclass(frozen=True)
@@ -32,7 +33,7 @@ class Assignment:
     arc : str
         The arc whose solution is used (nearest in time).
     shift_px : float
-        Extra shift applied to that solution (0 for ``nearest``).
+        Extra shift applied to that solution (0 unless interpolated).
     drift_px : float
         Estimated shift of the configuration at the frame's time, relative to its reference arc.
     method : str
@@ -56,11 +57,11 @@ class Assignment:
         return self.arc
 
 
-def assign(time_mjd: float, arcs: Sequence[ArcPoint], *, policy: str = "nearest",
+def assign(time_mjd: float, arcs: Sequence[ArcPoint], *, policy: str = "closest-arc",
            drift_threshold_px: float = 0.05) -> Assignment | None:
     """The assignment of a frame taken at ``time_mjd`` (None when there is no arc).
 
-    With ``policy="interpolate"`` and two arcs bracketing the frame whose shifts differ by more
+    With ``policy="follow-drift"`` and two arcs bracketing the frame whose shifts differ by more
     than ``drift_threshold_px``, the nearest arc's solution is shifted by the linearly
     interpolated drift minus that arc's own shift; otherwise the nearest arc is used as it is.
     """
@@ -73,7 +74,7 @@ def assign(time_mjd: float, arcs: Sequence[ArcPoint], *, policy: str = "nearest"
     times = np.array([a.time_mjd for a in ordered])
     nearest = ordered[int(np.argmin(np.abs(times - time_mjd)))]
     plain = Assignment(nearest.name, 0.0, nearest.shift_px, "nearest")
-    if policy == "nearest" or math.isnan(time_mjd):
+    if policy == "closest-arc" or math.isnan(time_mjd):
         return plain
     after = int(np.searchsorted(times, time_mjd, side="right"))
     if after == 0 or after == len(ordered):

@@ -72,7 +72,7 @@ def combine_bias(paths: Sequence[str | Path], *, sigma: float = 3.0
 def write_master_bias(master: np.ndarray, path: str | Path, sources: Sequence[str]) -> Path:
     """Write a master bias atomically, listing its source frames in HISTORY."""
     hdu = fits.PrimaryHDU(master)
-    hdu.header["NCOMBINE"] = (len(sources), "bias frames combined")
+    hdu.header["WCNCOMB"] = (len(sources), "bias frames combined")
     for s in sources:
         hdu.header.add_history(f"bias: {s}"[:70])
     with atomic_path(path) as tmp:

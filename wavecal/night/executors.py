@@ -20,6 +20,8 @@ from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from typing import Any
 
+from ..status import Status
+
 __all__ = ["TaskPool", "PARENT_CHECK_S"]
 
 #: Seconds between two checks, in each worker, that the parent process is still alive.
@@ -72,7 +74,7 @@ def _outcome(fut: Any, kwargs: dict) -> dict:
     try:
         return fut.result()
     except Exception as exc:  # a worker died: report, do not stop the night
-        return {"status": "failed", "reason": f"worker failed: {type(exc).__name__}: {exc}"}
+        return {"status": Status.FAILED, "reason": f"worker failed: {type(exc).__name__}: {exc}"}
 
 
 class TaskPool:

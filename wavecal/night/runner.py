@@ -33,6 +33,7 @@ from ..errors import FrameError, WavecalError
 from ..profile import InstrumentProfile
 from ..report import write_night_report
 from ..solution import load_solution
+from ..status import ExitCode, Status, exit_code_for
 from .assign import POLICIES, ArcPoint, assign
 from .bias import BiasCheck, check_master_bias, combine_bias, read_master_bias, write_master_bias
 from .drift import relative_shift
@@ -69,7 +70,7 @@ class NightResult:
         The content of ``summary.csv`` (:data:`SUMMARY_COLUMNS`).
     drift : pandas.DataFrame
         The content of ``drift.csv``.
-    exit_code : int
+    exit_code : ExitCode
         0 all good, 3 something suspect or unclassified, 4 something failed.
     n_made : int
         Products (re)made in this run (the others were up to date).
@@ -80,7 +81,7 @@ class NightResult:
     inventory: Inventory
     summary: pd.DataFrame
     drift: pd.DataFrame
-    exit_code: int
+    exit_code: ExitCode
     n_made: int
     elapsed_s: float
 
@@ -151,7 +152,7 @@ def _master_biases(inv: Inventory, out: Path, redo: bool, log: _Log
             try:
                 master, rejected = combine_bias([r.path for r in recs])
             except FrameError as exc:
-                rows += [_row(r, status="failed", reason=str(exc)) for r in recs]
+                rows += [_row(r, status=Status.FAILED, reason=str(exc)) for r in recs]
                 log(f"master bias {i}: {exc}")
                 continue
             used = [r.name for r in recs if str(r.path) not in rejected]
@@ -171,9 +172,9 @@ def _master_biases(inv: Inventory, out: Path, redo: bool, log: _Log
         rejected = result.get("rejected", {})
         for r in recs:
             if r.name in rejected:
-                rows.append(_row(r, status="failed", reason=rejected[r.name]))
+                rows.append(_row(r, status=Status.FAILED, reason=rejected[r.name]))
             else:
-                rows.append(_row(r, status="ok" if check.ok else "suspect",
+                rows.append(_row(r, status=Status.OK if check.ok else Status.SUSPECT,
                                  reason=f"combined into {_rel(product, out)}{note}",
                                  product=_rel(product, out), made=made > 0))
     return masters, rows, made
@@ -229,7 +230,7 @@ def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: floa
     rows = []
     for conf in inv.configurations():
         good = sorted((r for r in inv.of_kind("arc") if r.configuration == conf
-                       and arcs.get(r.name, {}).get("status") in ("ok", "suspect")),
+                       and arcs.get(r.name, {}).get("status") in (Status.OK, Status.SUSPECT)),
                       key=lambda r: (r.time_mjd, r.name))
         if not good:
             continue
@@ -238,7 +239,7 @@ def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: floa
             try:
                 sols[r.name] = load_solution(arcs[r.name]["product"])
             except WavecalError as exc:  # listed as failed; the night goes on
-                arcs[r.name].update(status="failed", reason=str(exc))
+                arcs[r.name].update(status=Status.FAILED, reason=str(exc))
                 log(f"arc {r.name}: {exc}")
         good = [r for r in good if r.name in sols]
         if not good:
@@ -253,7 +254,7 @@ def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: floa
                 off = p.shift_px - (a.shift_px + frac * (b.shift_px - a.shift_px))
                 if abs(off) > cross_check_px:
                     res = arcs[p.name]
-                    res["status"] = "suspect"
+                    res["status"] = Status.SUSPECT
                     res["reason"] = "; ".join(filter(None, [
                         res.get("reason"), f"shift disagrees with the neighbouring arcs by "
                                            f"{off:+.2f} px"]))
@@ -272,7 +273,7 @@ def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: floa
 def run_night(raw_dir: str | Path,
               profiles: InstrumentProfile | Mapping[str, InstrumentProfile],
               out_dir: str | Path, *, recursive: bool = False, workers: int = 1,
-              scheduler: str | None = None, policy: str = "nearest",
+              scheduler: str | None = None, policy: str = "closest-arc",
               drift_threshold_px: float = 0.05, cross_check_px: float = 0.5,
               angle_tolerance_deg: float = 0.01, profile_keyword: str = "INSTRUME",
               extra_keywords: tuple[str, ...] = (), redo: bool = False,
@@ -293,7 +294,7 @@ def run_night(raw_dir: str | Path,
         Local worker processes for the arcs and science frames.
     scheduler : str, optional
         Address of a Dask distributed scheduler to run them on instead (optional dependency).
-    policy : {"nearest", "interpolate"}
+    policy : {"closest-arc", "follow-drift"}
         Solution of a science frame: that of the nearest arc in time of its configuration, or,
         when the bracketing arcs' shifts differ by more than ``drift_threshold_px``, that
         solution moved by the drift interpolated linearly in time.
@@ -361,7 +362,7 @@ def run_night(raw_dir: str | Path,
             choice = assign(r.time_mjd, points.get(r.configuration, ()), policy=policy,
                             drift_threshold_px=drift_threshold_px)
             if choice is None:
-                science_rows[r.name] = _row(r, status="failed",
+                science_rows[r.name] = _row(r, status=Status.FAILED,
                                             reason=f"no usable arc of configuration {r.configuration}")
                 continue
             solution = Path(arcs[choice.arc]["product"])
@@ -389,31 +390,33 @@ def run_night(raw_dir: str | Path,
             row = science_rows[name]
             row.update(status=res["status"], reason=res.get("reason", ""),
                        rms_px=res.get("rms_px", math.nan))
-            if res["status"] == "failed":
+            if res["status"] == Status.FAILED:
                 row["product"] = ""
-            made += res["status"] != "failed"
+            made += res["status"] != Status.FAILED
             log(f"science {name}: {res['status']} {res.get('reason', '')}".rstrip())
         rows += list(science_rows.values())
 
     for r in inv.records:
         if r.problem:
-            rows.append(_row(r, status="failed", reason=r.problem))
+            rows.append(_row(r, status=Status.FAILED, reason=r.problem))
         elif r.kind == "flat":
-            rows.append(_row(r, status="skipped",
+            rows.append(_row(r, status=Status.SKIPPED,
                              reason="flat field: not used by the wavelength calibration"))
         elif r.kind in ("other", "unknown"):
-            rows.append(_row(r, status="skipped",
+            rows.append(_row(r, status=Status.SKIPPED,
                              reason=f"frame type {r.kind}: not processed"))
     order = {r.name: i for i, r in enumerate(inv.records)}
     rows = sorted(rows, key=lambda row: order[row["file"]])
     rows += [{**_row(FileRecord(path=inv.root / name, name=name, stem="", kind="other")),
-              "status": "skipped", "reason": reason} for name, reason in inv.ignored]
+              "status": Status.SKIPPED, "reason": reason} for name, reason in inv.ignored]
     summary = pd.DataFrame(rows, columns=list(SUMMARY_COLUMNS))
     summary["rms_px"] = pd.to_numeric(summary["rms_px"])
     atomic_write_text(out / "summary.csv", summary.to_csv(index=False))
     statuses = set(summary["status"])
-    unclassified = bool(((summary["kind"] == "unknown") & (summary["status"] != "failed")).any())
-    exit_code = 4 if "failed" in statuses else 3 if ("suspect" in statuses or unclassified) else 0
+    unclassified = bool(((summary["kind"] == "unknown") & (summary["status"] != Status.FAILED)).any())
+    exit_code = exit_code_for(statuses)
+    if exit_code == ExitCode.OK and unclassified:
+        exit_code = ExitCode.SUSPECT
     elapsed = time.monotonic() - start
     counts = summary["status"].value_counts().to_dict()
     log(f"done in {elapsed:.1f} s: {len(summary)} files, "

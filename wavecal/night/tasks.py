@@ -18,11 +18,12 @@ from astropy.io import fits
 from .._version import __version__
 from .._atomic import atomic_path, atomic_write_text
 from ..calibrated import calibrate_image
-from ..calibrate import calibrate_frame
 from ..frames import read_frame
 from ..profile import InstrumentProfile
-from ..report.spectrum_file import save_spectrum, spectrum_path
+from ..report.spectrum_file import spectrum_path
 from ..solution import load_solution
+from ..solve import solve_and_write
+from ..status import Status
 from .bias import read_master_bias
 from .drift import shifted_solution
 
@@ -82,7 +83,7 @@ def verify_products(manifest: dict[str, Any], products: tuple[str | Path, ...]) 
 
 
 def _failure(exc: BaseException) -> dict[str, Any]:
-    return {"status": "failed", "reason": str(exc) or type(exc).__name__}
+    return {"status": Status.FAILED, "reason": str(exc) or type(exc).__name__}
 
 
 def arc_task(*, path: str, profile: InstrumentProfile, bias_path: str | None, product: str,
@@ -91,10 +92,9 @@ def arc_task(*, path: str, profile: InstrumentProfile, bias_path: str | None, pr
     try:
         bias = read_master_bias(bias_path) if bias_path else None
         frame = read_frame(path, profile, bias=bias)
-        calibration = calibrate_frame(frame, profile, details=True)
-        solution = calibration.solution
-        solution.write(product)
-        save_spectrum(spectrum_path(product), calibration.spectrum.x, calibration.spectrum.flux)
+        written = solve_and_write(frame, profile, Path(product).parent, line_table=False,
+                                  stem=Path(product).name.removesuffix(".solution.json"))
+        solution = written.solution
         result = {"status": solution.status, "reason": "; ".join(solution.reasons),
                   "rms_px": solution.rms_px, "product": product}
     except Exception as exc:  # every failure becomes a row of the summary
@@ -119,8 +119,8 @@ def science_task(*, path: str, profile: InstrumentProfile, bias_path: str | None
         frame = read_frame(path, profile, bias=bias)
         provenance = fits.Header()
         provenance["WCVERS"] = (__version__, "wavecal version")
-        provenance["WCSOLFIL"] = (Path(solution_path).name, "solution file")
-        provenance["WCSHIFT"] = (float(shift_px), "[px] drift shift applied to the solution")
+        provenance["WCARCFIL"] = (Path(solution_path).name, "solution file")
+        provenance["WCDRIFT"] = (float(shift_px), "[px] drift shift applied to the solution")
         provenance["WCINFIL"] = (Path(path).name, "input frame")
         provenance.add_history(f"wavecal {__version__} night: bias-subtracted, electrons")
         hdul = calibrate_image(solution, frame.data, header=frame.header,

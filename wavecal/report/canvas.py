@@ -106,18 +106,15 @@ def _marker_mask(shape: str, size_px: float, filled: bool, width_px: float) -> I
     draw = ImageDraw.Draw(big)
     c, r, w = half * k, size_px * k / 2, max(1, int(round(width_px * k)))
     inner = 255 if filled else None
-    if shape == "x":
-        q = r * 0.8
-        draw.line((c - q, c - q, c + q, c + q), fill=255, width=w)
-        draw.line((c - q, c + q, c + q, c - q), fill=255, width=w)
+    if shape == "|":
+        draw.line((c, c - r, c, c + r), fill=255, width=w)
     elif shape == "o":
         draw.ellipse((c - r, c - r, c + r, c + r), fill=inner, outline=255, width=w)
     elif shape == "s":
         q = r * 0.85
         draw.rectangle((c - q, c - q, c + q, c + q), fill=inner, outline=255, width=w)
     else:
-        points = {"D": ((c, c - r), (c + r, c), (c, c + r), (c - r, c)),
-                  "^": ((c, c - r), (c + r, c + 0.8 * r), (c - r, c + 0.8 * r)),
+        points = {"^": ((c, c - r), (c + r, c + 0.8 * r), (c - r, c + 0.8 * r)),
                   "v": ((c, c + r), (c + r, c - 0.8 * r), (c - r, c - 0.8 * r))}[shape]
         draw.polygon(points, fill=inner, outline=255, width=w)
     return big.reduce(k)
@@ -198,7 +195,7 @@ class Canvas:
     def markers(self, x, y, shape: str, colour: str, *, size: float = 7.0,
                 filled: bool = True, width: float = 1.2) -> None:
         """Markers of ``size`` pixels at ``(x, y)``: ``shape`` is one of ``o`` (circle),
-        ``s`` (square), ``D`` (diamond), ``^``/``v`` (triangles), ``x`` (cross)."""
+        ``s`` (square), ``^``/``v`` (triangles), ``|`` (vertical tick)."""
         mask = _marker_mask(shape, size * self.scale, filled, width * self.scale)
         half = mask.size[0] / 2
         rgb = _rgba(colour, 1.0)[:3]

@@ -16,6 +16,7 @@ import pandas as pd
 from matplotlib import colormaps
 
 from ..solution import Solution
+from ..status import Status
 from .canvas import Canvas, legend
 from .chart import Panel, clock_ticks, limits, nice_ticks, tick_labels
 
@@ -26,13 +27,14 @@ __all__ = ["spectrum_figure", "residuals_figure", "quality_figure", "slit_figure
 PALETTE = {"used": "#0072B2", "rejected": "#D55E00", "extra": "#E69F00", "band": "#56B4E9",
            "unconfirmed": "#009E73",
            "extrapolated": "#999999", "ghost": "#CC79A7", "unidentified": "#999999",
-           "spectrum": "#000000", "ok": "#0072B2", "suspect": "#E69F00", "failed": "#D55E00"}
+           "spectrum": "#000000", Status.OK: "#0072B2", Status.SUSPECT: "#E69F00",
+           Status.FAILED: "#D55E00"}
 #: Colours of successive series (configurations) in the night figures.
 SERIES = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442")
 #: How each kind of peak is marked: (marker, colour, filled).
-PEAK_STYLES = {"used": ("v", PALETTE["used"], True), "rejected": ("D", PALETTE["rejected"], False),
-               "extra": ("^", PALETTE["extra"], False), "ghost": ("s", PALETTE["ghost"], False),
-               "unidentified": ("x", PALETTE["unidentified"], False)}
+PEAK_STYLES = {"used": ("v", PALETTE["used"], True), "rejected": ("s", PALETTE["rejected"], False),
+               "extra": ("^", PALETTE["extra"], False), "ghost": ("o", PALETTE["ghost"], False),
+               "unidentified": ("|", PALETTE["unidentified"], False)}
 _WIDTH = 1100
 #: Below this spread of the line shift over the slit (px) the slit map says it is flat.
 FLAT_SLIT_PX = 0.01
@@ -168,7 +170,7 @@ def _off_scale(panel: Panel, x: np.ndarray, res: np.ndarray, half: float, colour
 
 def residuals_figure(solution: Solution) -> Canvas:
     """Residuals (pixels) against pixel and against wavelength: used lines filled circles
-    with error bars, rejected lines open diamonds, unconfirmed lines triangles; the band is ±RMS; the
+    with error bars, rejected lines open squares, unconfirmed lines triangles; the band is ±RMS; the
     shaded regions are extrapolated (no line used there). Lines beyond the axes (the axes
     follow the used lines) are arrowheads at the edge, with their residual written."""
     canvas = Canvas(_WIDTH, 570)
@@ -189,7 +191,7 @@ def residuals_figure(solution: Solution) -> Canvas:
     n = solution.model.n_pixels
     lo, hi = solution.covered_range_px
     wl_edges = np.asarray(solution.wavelength(np.array([0.0, lo, hi, n - 1.0])), dtype=float)
-    styles = (("used", "o", True), ("rejected", "D", False), ("unconfirmed", "^", False))
+    styles = (("used", "o", True), ("rejected", "s", False), ("unconfirmed", "^", False))
     items = []
     for kind, marker, filled in styles:
         if (ident == kind).any():
@@ -259,21 +261,21 @@ def quality_figure(solution: Solution) -> Canvas:
     n = solution.model.n_pixels if solution.model is not None else None
     xlim = (0.0, n - 1.0) if n else limits(x)
     panel = Panel(canvas, boxes[1], xlim, limits(fwhm, include=(0.0,)))
-    panel.points(x[~used], fwhm[~used], "x", PALETTE["unidentified"], size=6)
+    panel.points(x[~used], fwhm[~used], "|", PALETTE["unidentified"], size=6)
     panel.points(x[used], fwhm[used], "o", PALETTE["used"], size=6)
     panel.finish(xlabel="pixel along dispersion", ylabel="FWHM (px)", title="line width")
     if solution.model is not None and x.size:
         lam = np.asarray(solution.wavelength(x), dtype=float)
         power = lam / (np.abs(np.asarray(solution.model.dispersion(x), dtype=float)) * fwhm)
         panel = Panel(canvas, boxes[2], xlim, limits(power, include=(0.0,)))
-        panel.points(x[~used], power[~used], "x", PALETTE["unidentified"], size=6)
+        panel.points(x[~used], power[~used], "|", PALETTE["unidentified"], size=6)
         panel.points(x[used], power[used], "o", PALETTE["used"], size=6)
     else:
         panel = Panel(canvas, boxes[2], xlim, (0.0, 1.0))
         panel.message("no wavelength scale")
     panel.finish(xlabel="pixel along dispersion", ylabel="λ/Δλ", title="resolving power")
     legend(canvas, _WIDTH - 15, 8, [({"marker": "o", "colour": PALETTE["used"]}, "used lines"),
-                                    ({"marker": "x", "colour": PALETTE["unidentified"]},
+                                    ({"marker": "|", "colour": PALETTE["unidentified"]},
                                      "other peaks")], align="right")
     return canvas
 
@@ -366,7 +368,7 @@ def arcs_figure(arcs: pd.DataFrame) -> Canvas:
     canvas = Canvas(_WIDTH, 320)
     idx = np.arange(len(arcs), dtype=float)
     status = [str(s) for s in arcs.get("status", [])]
-    colours = [PALETTE.get(s, PALETTE["failed"]) for s in status]
+    colours = [PALETTE.get(s, PALETTE[Status.FAILED]) for s in status]
     xlim = (-0.7, max(len(arcs), 1) - 0.3)
     for box, key, label in (((70, 40, 530, 270), "rms_px", "RMS (px)"),
                             ((610, 40, _WIDTH - 15, 270), "n_used", "lines used")):
@@ -379,6 +381,6 @@ def arcs_figure(arcs: pd.DataFrame) -> Canvas:
         else:
             panel.message("no arcs")
         panel.finish(xlabel="arc (observation order)", ylabel=label)
-    items = [({"patch": PALETTE[s]}, s) for s in ("ok", "suspect", "failed")]
+    items = [({"patch": PALETTE[s]}, s.value) for s in (Status.OK, Status.SUSPECT, Status.FAILED)]
     legend(canvas, _WIDTH - 15, 8, items, align="right")
     return canvas

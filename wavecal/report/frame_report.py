@@ -19,6 +19,7 @@ from ..peaks import describe_flags
 from .._json import jsonable
 from .._stems import file_stem
 from ..solution import Solution
+from ..status import Status
 from . import figures
 from .html import esc, fmt, image, page, status_badge, table
 
@@ -74,9 +75,9 @@ def frame_facts(solution: Solution) -> dict[str, Any]:
 
 
 def _verdict_html(solution: Solution, facts: dict[str, Any]) -> str:
-    words = {"ok": "This solution can be trusted.",
-             "suspect": "This solution may be usable but needs a look:",
-             "failed": "No usable solution was found:"}
+    words = {Status.OK: "This solution can be trusted.",
+             Status.SUSPECT: "This solution may be usable but needs a look:",
+             Status.FAILED: "No usable solution was found:"}
     reasons = "".join(f"<li>{esc(r)}</li>" for r in solution.reasons)
     moved = [p for p in facts["parameters"] if p["large_shift"]]
     warn = "".join(

@@ -20,6 +20,7 @@ from .._atomic import atomic_write_bytes, atomic_write_text
 from ..errors import SolutionFileError, WavecalError
 from .._json import jsonable
 from ..solution import load_solution
+from ..status import Status
 from . import figures
 from .frame_report import FrameReport, write_frame_report
 from .html import esc, fmt, image, page, status_badge, table
@@ -28,7 +29,7 @@ from .spectrum_file import load_spectrum, spectrum_path
 __all__ = ["NightReport", "write_night_report", "STATUS_ORDER"]
 
 #: Order of the file table: what needs attention first.
-STATUS_ORDER = ("failed", "suspect", "ok", "skipped")
+STATUS_ORDER = (Status.FAILED, Status.SUSPECT, Status.OK, Status.SKIPPED)
 
 
 @dataclass(frozen=True)
@@ -135,7 +136,7 @@ def write_night_report(night_dir: str | Path, *, frames: bool = True) -> NightRe
                 for a in arcs]
     headline = " ".join(f"{status_badge(s)} {n}" for s, n in sorted(
         counts.items(), key=lambda item: rank.get(item[0], len(rank))))
-    attention = [i for i, c in enumerate(classes) if c in ("failed", "suspect")]
+    attention = [i for i, c in enumerate(classes) if c in (Status.FAILED, Status.SUSPECT)]
     file_header = ("file", "kind", "configuration", "status", "reason", "RMS (px)", "drift (px)",
                    "frame report")
     body = [f"<h1>Night report: {esc(night.resolve().name)}</h1>",

@@ -1,9 +1,8 @@
-"""Command-line handler of ``wavecal plan``: plan a grating setting before the night.
+"""``wavecal plan``: plan a grating setting before the night.
 
-Wired into :mod:`wavecal.cli` through :func:`add_plan_arguments` and :func:`run_plan_command`.
-Exit codes: 0 plan made, 1 bad input (unreadable profile, unreachable wavelength, invalid
-option), 2 usage error (no setting given for a profile whose grating angle has no header
-default), 3 plan made with warnings.
+Exit codes (:class:`~wavecal.status.ExitCode`): 0 plan made, 1 bad input (unreadable profile,
+unreachable wavelength, invalid option), 2 usage error (no setting given for a profile whose
+grating angle has no header default), 3 plan made with warnings.
 """
 from __future__ import annotations
 
@@ -12,12 +11,11 @@ import json
 import sys
 from pathlib import Path
 
-from ._stems import file_stem
-from .errors import WavecalError
+from .._stems import file_stem
+from ..errors import WavecalError
+from ..status import ExitCode
 
 __all__ = ["add_plan_arguments", "run_plan_command"]
-
-_EXIT_OK, _EXIT_BAD_INPUT, _EXIT_USAGE, _EXIT_WARNINGS = 0, 1, 2, 3
 
 
 def _positive(text: str) -> float:
@@ -79,11 +77,11 @@ def _fixed_angle(profile) -> float | None:
     return g.angle_scale * float(spec.default) + g.angle_zero_point_deg
 
 
-def run_plan_command(args: argparse.Namespace) -> int:
+def run_plan_command(args: argparse.Namespace) -> ExitCode:
     """Run ``wavecal plan``; returns the exit code (see the module docstring)."""
-    from .plan import plan_setup
-    from .plan.text import format_plan
-    from .profile import load_profile
+    from ..plan import plan_setup
+    from ..plan.text import format_plan
+    from ..profile import load_profile
 
     try:
         profile = load_profile(args.profile)
@@ -93,7 +91,7 @@ def run_plan_command(args: argparse.Namespace) -> int:
             angle = _fixed_angle(profile)
             if angle is None:
                 print("error: give --grating-angle or --central-wavelength", file=sys.stderr)
-                return _EXIT_USAGE
+                return ExitCode.USAGE
         binning = [1, 1]
         binning[profile.detector.dispersion_axis] = int(getattr(args, "binning", 1))
         plan = plan_setup(profile, grating_angle_deg=angle, central_wavelength_nm=centre,
@@ -104,12 +102,12 @@ def run_plan_command(args: argparse.Namespace) -> int:
             stem = _stem(profile, plan)
             written.append(plan.to_json(Path(out) / f"{stem}.plan.json"))
             if not getattr(args, "no_plot", False):
-                from .plan.plot import save_plan_plot
+                from ..plan.plot import save_plan_plot
 
                 written.append(save_plan_plot(plan, Path(out) / f"{stem}.plan.png"))
     except (WavecalError, OSError) as exc:
         print(f"error: {exc}", file=sys.stderr)
-        return _EXIT_BAD_INPUT
+        return ExitCode.BAD_INPUT
     if getattr(args, "print_json", False):
         print(json.dumps(plan.summary(), indent=2, allow_nan=False))
     else:
@@ -117,4 +115,4 @@ def run_plan_command(args: argparse.Namespace) -> int:
     if written:
         print(f"written: {', '.join(str(p) for p in written)}",
               file=sys.stderr if getattr(args, "print_json", False) else sys.stdout)
-    return _EXIT_WARNINGS if plan.warnings else _EXIT_OK
+    return ExitCode.SUSPECT if plan.warnings else ExitCode.OK

@@ -1,4 +1,4 @@
-"""Command-line handlers of ``wavecal night`` (wired into :mod:`wavecal.cli` by the lead)."""
+"""``wavecal night``: a whole night's folder (:func:`wavecal.night.runner.run_night`)."""
 from __future__ import annotations
 
 import argparse
@@ -6,6 +6,8 @@ import sys
 from pathlib import Path
 
 from ..errors import WavecalError
+from ..night.assign import POLICIES
+from ..status import ExitCode
 from ..validation import Integer, Real, option_type
 
 __all__ = ["add_night_arguments", "run_night_command"]
@@ -19,9 +21,10 @@ def add_night_arguments(parser: argparse.ArgumentParser) -> None:
                              "chosen per file by --profile-keyword")
     parser.add_argument("-o", "--out", default="wavecal-night", help="output folder")
     parser.add_argument("-r", "--recursive", action="store_true", help="also read sub-folders")
-    parser.add_argument("--policy", choices=("nearest", "interpolate"), default="nearest",
-                        help="solution of a science frame: nearest arc in time, or interpolated "
-                             "for drift between the bracketing arcs (default nearest)")
+    parser.add_argument("--policy", choices=POLICIES, default=POLICIES[0],
+                        help="solution of a science frame: the closest arc in time as it is, or "
+                             "moved by the drift interpolated between the bracketing arcs "
+                             "(default %(default)s)")
     parser.add_argument("--drift-threshold", type=option_type(Real(low=0)), default=0.05, metavar="PX",
                         help="interpolate only when the bracketing arcs differ by more (px)")
     parser.add_argument("--angle-tolerance", type=option_type(Real(low=0)), default=0.01, metavar="DEG",
@@ -41,11 +44,11 @@ def add_night_arguments(parser: argparse.ArgumentParser) -> None:
                         help="do not write the QA reports (night_report.html, reports/)")
 
 
-def run_night_command(args: argparse.Namespace) -> int:
+def run_night_command(args: argparse.Namespace) -> ExitCode:
     """Run the night; exit code 0 all ok, 1 bad input, 3 something suspect, 4 something failed."""
+    from ..night.progress import Progress
+    from ..night.runner import run_night
     from ..profile import load_profile
-    from .progress import Progress
-    from .runner import run_night
 
     try:
         profiles = {}
@@ -63,7 +66,7 @@ def run_night_command(args: argparse.Namespace) -> int:
                            reports=not getattr(args, "no_report", False))
     except (WavecalError, ImportError, OSError) as exc:
         print(f"wavecal night: {exc}", file=sys.stderr)
-        return 1
+        return ExitCode.BAD_INPUT
     counts = result.summary["status"].value_counts().to_dict()
     print(f"{len(result.summary)} files: " + ", ".join(f"{n} {s}" for s, n in sorted(counts.items()))
           + f"; {result.n_made} product(s) made in {result.elapsed_s:.1f} s")

@@ -1,5 +1,4 @@
-"""Command-line handlers of ``wavecal report`` (wired into :mod:`wavecal.cli` by the lead):
-regenerate reports from saved solutions, without fitting again."""
+"""``wavecal report``: regenerate reports from saved solutions, without fitting again."""
 from __future__ import annotations
 
 import argparse
@@ -7,6 +6,7 @@ import sys
 from pathlib import Path
 
 from ..errors import WavecalError
+from ..status import ExitCode
 
 __all__ = ["add_report_arguments", "run_report_command"]
 
@@ -22,12 +22,12 @@ def add_report_arguments(parser: argparse.ArgumentParser) -> None:
                         help="for a night folder: only the night page, not the arcs' reports")
 
 
-def run_report_command(args: argparse.Namespace) -> int:
+def run_report_command(args: argparse.Namespace) -> ExitCode:
     """Write the reports; exit code 0 written, 1 bad input."""
     from ..solution import load_solution
-    from .frame_report import write_frame_report
-    from .night_report import write_night_report
-    from .spectrum_file import load_spectrum, spectrum_path
+    from ..report.frame_report import write_frame_report
+    from ..report.night_report import write_night_report
+    from ..report.spectrum_file import load_spectrum, spectrum_path
 
     try:
         for src in map(Path, args.source):
@@ -44,5 +44,5 @@ def run_report_command(args: argparse.Namespace) -> int:
             print(f"frame report: {rep.html}")
     except (WavecalError, OSError) as exc:
         print(f"wavecal report: {exc}", file=sys.stderr)
-        return 1
-    return 0
+        return ExitCode.BAD_INPUT
+    return ExitCode.OK
