@@ -31,7 +31,8 @@ from wavecal.calibrate import calibrate_frame
 from wavecal.errors import ProfileError
 from wavecal.extract import extract_spectrum
 from wavecal.frames import frame_from_array
-from wavecal.peaks import PeakFlag, find_peaks
+from wavecal.peak_table import PeakFlag
+from wavecal.peaks import find_peaks
 from wavecal.profile import load_profile, profile_from_dict
 from wavecal.simulate import simulate_arc
 from wavecal.calibrate import _measure_slit

@@ -14,8 +14,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import ndtr
 
-__all__ = ["FitState", "FitData", "fit_units", "profile"]
+__all__ = ["FWHM_PER_SIGMA", "FitState", "FitData", "fit_units", "profile"]
 
+#: FWHM of a Gaussian in units of its standard deviation.
+FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 #: Neighbours on each side of a unit whose current model is subtracted as a fixed offset.
 _NEIGHBOURS = 3

@@ -15,6 +15,7 @@ import numpy as np
 from numpy.polynomial import legendre
 from scipy.special import ndtr
 
+from ._line_fit import FWHM_PER_SIGMA
 from .frames import Frame
 from .slit_shift import fit_shift_model
 
@@ -34,7 +35,6 @@ _REJECT_SIGMA = 5.0
 #: Allowance (pixels) for a line sliding along the dispersion within a band.
 _SLIDE_PX = 1.0
 _HUGE = np.float32(1e30)
-_FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
 
@@ -191,15 +191,15 @@ class TraceState:
         y = np.take_along_axis(profile, take, axis=1)
         var = np.take_along_axis(variance, take, axis=1)
         use = np.take_along_axis(usable, take, axis=1)
-        fit = _fit_profiles(y, var, use, _refine(y, half), fwhm / _FWHM_PER_SIGMA)
+        fit = _fit_profiles(y, var, use, _refine(y, half), fwhm / FWHM_PER_SIGMA)
         offset = first + peak - half
         n_use = use.sum(axis=1)
-        sigma_ok = (fit.sigma * _FWHM_PER_SIGMA >= 0.5) & (fit.sigma < 0.6 * half)
+        sigma_ok = (fit.sigma * FWHM_PER_SIGMA >= 0.5) & (fit.sigma < 0.6 * half)
         accept = (fit.converged & (n_use >= 6) & (fit.flux > _MIN_BAND_SNR * fit.flux_err)
                   & (np.abs(fit.x0 - half) <= 1.5) & sigma_ok & np.isfinite(fit.x_err))
         self.x[li, bi] = np.where(accept, fit.x0 + offset, np.nan)
         self.x_err[li, bi] = np.where(accept, fit.x_err, np.nan)
-        self.fwhm[li, bi] = np.where(accept, fit.sigma * _FWHM_PER_SIGMA, np.nan)
+        self.fwhm[li, bi] = np.where(accept, fit.sigma * FWHM_PER_SIGMA, np.nan)
         self.good[li, bi] = accept
 
 

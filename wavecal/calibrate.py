@@ -26,7 +26,8 @@ from .match import (Identification, associate, blend_distance_px, chance_log10_p
                     coincidence_probabilities, identify_lines)
 from .model_setup import PriorBox, nominal_model, prior_box
 from .optics import GratingModel
-from .peaks import PeakFlag, PeakTable, find_peaks
+from .peak_table import PeakFlag, PeakTable
+from .peaks import find_peaks
 from .profile import InstrumentProfile
 from .slit_shift import SlitShift
 from .solution import SPEED_OF_LIGHT_KMS, Solution

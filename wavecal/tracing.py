@@ -61,7 +61,7 @@ from ._trace_bands import FLOOR_PX, SpatialFirst, TraceState, follow, split_band
 from .errors import FrameError
 from .extract import Spectrum
 from .frames import Frame
-from .peaks import PeakFlag, PeakTable
+from .peak_table import PeakFlag, PeakTable
 from .profile import InstrumentProfile
 from .slit_shift import SlitShift, fit_shift_model
 

@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 
 from .._atomic import atomic_write_bytes, atomic_write_text
-from ..peaks import describe_flags
+from ..peak_table import describe_flags
 from ..solution import Solution, _jsonable
 from . import figures
 from .html import esc, fmt, image, page, status_badge, table
