@@ -9,13 +9,11 @@ normalised rows, fitted by the shared line-profile fitter :mod:`wavecal._line_fi
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 from numpy.polynomial import legendre
-from scipy.special import ndtr
 
-from ._line_fit import FWHM_PER_SIGMA
+from ._line_fit import FWHM_PER_SIGMA, fit_windows
 from .frames import Frame
 from .slit_shift import fit_shift_model
 
@@ -35,7 +33,6 @@ _REJECT_SIGMA = 5.0
 #: Allowance (pixels) for a line sliding along the dispersion within a band.
 _SLIDE_PX = 1.0
 _HUGE = np.float32(1e30)
-_INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
 
 class SpatialFirst:
@@ -191,11 +188,12 @@ class TraceState:
         y = np.take_along_axis(profile, take, axis=1)
         var = np.take_along_axis(variance, take, axis=1)
         use = np.take_along_axis(usable, take, axis=1)
-        fit = _fit_profiles(y, var, use, _refine(y, half), fwhm / FWHM_PER_SIGMA)
+        fit = fit_windows(y, var, use, _refine(y, half), fwhm / FWHM_PER_SIGMA,
+                          (0.15, y.shape[1] / 2.0))
         offset = first + peak - half
         n_use = use.sum(axis=1)
         sigma_ok = (fit.sigma * FWHM_PER_SIGMA >= 0.5) & (fit.sigma < 0.6 * half)
-        accept = (fit.converged & (n_use >= 6) & (fit.flux > _MIN_BAND_SNR * fit.flux_err)
+        accept = (fit.ok & (n_use >= 6) & (fit.flux > _MIN_BAND_SNR * fit.flux_err)
                   & (np.abs(fit.x0 - half) <= 1.5) & sigma_ok & np.isfinite(fit.x_err))
         self.x[li, bi] = np.where(accept, fit.x0 + offset, np.nan)
         self.x_err[li, bi] = np.where(accept, fit.x_err, np.nan)
@@ -284,88 +282,3 @@ def _refine(y: np.ndarray, half: int) -> np.ndarray:
     curvature = 2.0 * b - a - c
     step = np.where(curvature > 0, 0.5 * (c - a) / np.where(curvature > 0, curvature, 1.0), 0.0)
     return half + np.clip(step, -0.5, 0.5)
-
-
-@dataclass(frozen=True, eq=False)
-class _ProfileFit:
-    x0: np.ndarray
-    x_err: np.ndarray
-    sigma: np.ndarray
-    flux: np.ndarray
-    flux_err: np.ndarray
-    converged: np.ndarray
-
-
-def _fit_profiles(y: np.ndarray, var: np.ndarray, use: np.ndarray, x_start: np.ndarray,
-                  sigma_start: float, max_iter: int = 30) -> _ProfileFit:
-    """Pixel-integrated Gaussian plus constant fitted to every row of ``y`` (pixel k centred at
-    k), weights 1/var on the usable pixels; a batched Levenberg-Marquardt iteration (each fit
-    leaves the batch once its centre moves by less than 1e-4 pixel)."""
-    n, m = y.shape
-    edges = np.arange(m + 1, dtype=float) - 0.5
-    w = np.where(use, 1.0 / var, 0.0)
-    background = np.median(np.concatenate([y[:, :2], y[:, -2:]], axis=1), axis=1)
-    flux = np.maximum(np.sum(np.where(use, y - background[:, None], 0.0), axis=1), 1e-3)
-    theta = np.stack([x_start, np.full(n, math.log(max(float(sigma_start), 0.3))), flux,
-                      background], axis=1)
-    lower = np.array([0.0, math.log(0.15), -np.inf, -np.inf])
-    upper = np.array([m - 1.0, math.log(m / 2.0), np.inf, np.inf])
-
-    def evaluate(th, with_jacobian=True):
-        s = np.exp(th[:, 1:2])
-        z = (edges[None, :] - th[:, 0:1]) / s
-        cdf = ndtr(z)
-        e = cdf[:, 1:] - cdf[:, :-1]
-        mu = th[:, 2:3] * e + th[:, 3:4]
-        if not with_jacobian:
-            return mu, None
-        pdf = np.exp(-0.5 * z * z) * _INV_SQRT_2PI
-        zpdf = z * pdf
-        jac = np.empty(e.shape + (4,))
-        jac[:, :, 0] = th[:, 2:3] * (pdf[:, :-1] - pdf[:, 1:]) / s
-        jac[:, :, 1] = th[:, 2:3] * (zpdf[:, :-1] - zpdf[:, 1:])
-        jac[:, :, 2] = e
-        jac[:, :, 3] = 1.0
-        return mu, jac
-
-    def normal_equations(jac, weights, resid):
-        jw = jac * weights[:, :, None]
-        return np.matmul(jw.transpose(0, 2, 1), jac), np.matmul(jw.transpose(0, 2, 1),
-                                                                resid[:, :, None])[:, :, 0]
-
-    lam = np.full(n, 1e-3)
-    done = np.zeros(n, bool)
-    eye = np.eye(4)
-    mu, _ = evaluate(theta, False)
-    chi2 = np.sum(w * (y - mu) ** 2, axis=1)
-    for _ in range(max_iter):
-        act = np.flatnonzero(~done)
-        if act.size == 0:
-            break
-        th, wa, ya = theta[act], w[act], y[act]
-        mu_a, jac = evaluate(th)
-        normal, grad = normal_equations(jac, wa, ya - mu_a)
-        diag = np.maximum(np.einsum("npp->np", normal), 1e-300)
-        step = np.linalg.solve(normal + (lam[act, None] * diag)[:, :, None] * eye,
-                               grad[:, :, None])[:, :, 0]
-        trial = np.clip(th + step, lower, upper)
-        chi2_t = np.sum(wa * (ya - evaluate(trial, False)[0]) ** 2, axis=1)
-        better = chi2_t <= chi2[act]
-        small = np.abs(trial[:, 0] - th[:, 0]) < 1e-4
-        theta[act] = np.where(better[:, None], trial, th)
-        chi2[act] = np.where(better, chi2_t, chi2[act])
-        done[act] = (better & small) | (lam[act] > 1e8)
-        lam[act] = np.where(better, np.maximum(lam[act] / 3.0, 1e-7), lam[act] * 4.0)
-    _, jac = evaluate(theta)
-    normal, _ = normal_equations(jac, w, np.zeros_like(y))
-    scale = np.sqrt(np.maximum(np.einsum("npp->np", normal), 1e-300))
-    scaled = normal / (scale[:, :, None] * scale[:, None, :])
-    invertible = np.linalg.cond(scaled) < 1e12
-    cov = np.full_like(normal, np.nan)
-    cov[invertible] = np.linalg.inv(scaled[invertible]) / (
-        scale[invertible][:, :, None] * scale[invertible][:, None, :])
-    var_theta = np.einsum("npp->np", cov)
-    err = np.sqrt(np.where(var_theta > 0, var_theta, np.nan))
-    return _ProfileFit(x0=theta[:, 0], x_err=err[:, 0], sigma=np.exp(theta[:, 1]),
-                       flux=theta[:, 2], flux_err=err[:, 2], converged=done & invertible)
-
