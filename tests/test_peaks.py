@@ -22,7 +22,8 @@ import pytest
 from scipy.special import erf, ndtr
 
 from wavecal.extract import Spectrum
-from wavecal.peaks import COLUMNS, PeakFlag, PeakTable, describe_flags, find_peaks
+from wavecal.peak_table import COLUMNS, PeakFlag, PeakTable, describe_flags
+from wavecal.peaks import find_peaks
 
 FWHM_PER_SIGMA = 2.0 * np.sqrt(2.0 * np.log(2.0))
 

@@ -127,7 +127,7 @@ def test_night_page_puts_problems_first_and_never_prints_nan(tmp_path):
 
 
 def test_peak_flags_are_written_out(calibration, tmp_path):
-    from wavecal.peaks import PeakFlag
+    from wavecal.peak_table import PeakFlag
     sol = calibration.solution
     lines = sol.lines.copy()
     lines.loc[lines.index[0], "flags"] = int(PeakFlag.SATURATED) | int(PeakFlag.EDGE)

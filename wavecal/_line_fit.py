@@ -5,6 +5,10 @@ G widths (``ln sigma``, each bounded around the line's expected width) and one c
 background; fluxes are bounded below by zero. All units of the same G are solved at once by a vectorised Levenberg–Marquardt
 iteration. Lines outside a unit contribute their current model as a fixed offset. A width may
 carry a Gaussian prior (used for saturated lines, whose cores are not fitted).
+
+The same fitter serves the peak finder (:mod:`wavecal.peaks`, :func:`fit_units` on a spectrum)
+and the tracing of lines along the slit (:mod:`wavecal._trace_bands`, :func:`fit_windows` on the
+line profiles of bands of rows, whose variance is given rather than re-evaluated on the model).
 """
 from __future__ import annotations
 
@@ -14,8 +18,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import ndtr
 
-__all__ = ["FitState", "FitData", "fit_units", "profile"]
+__all__ = ["FWHM_PER_SIGMA", "FitState", "FitData", "fit_units", "fit_windows", "profile"]
 
+#: FWHM of a Gaussian in units of its standard deviation.
+FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 #: Neighbours on each side of a unit whose current model is subtracted as a fixed offset.
 _NEIGHBOURS = 3
@@ -32,6 +38,9 @@ class FitData:
     fit_ok: np.ndarray
     #: Smallest variance allowed.
     floor: float
+    #: The variance has a part proportional to the signal, re-evaluated on the model at every
+    #: iteration; when False, ``read_var`` is the whole variance.
+    poisson: bool = True
 
 
 @dataclass
@@ -97,7 +106,8 @@ def fit_units(data: FitData, base: np.ndarray, st: FitState, units: np.ndarray, 
     to let the owned ones settle next to them.
     ``half`` (one per unit) is the number of pixels fitted beyond the outermost centres. The
     variance is the noise model re-evaluated on the model at every iteration, ``max(model +
-    offset, 0) + read_var``; at convergence this is the Poisson maximum-likelihood estimate.
+    offset, 0) + read_var`` (``read_var`` alone when ``data.poisson`` is False); at convergence
+    this is the Poisson maximum-likelihood estimate.
     Uncertainties come from the inverse of the weighted normal matrix (plus the priors) at the
     solution, i.e. from the noise model alone.
     """
@@ -156,7 +166,7 @@ def fit_units(data: FitData, base: np.ndarray, st: FitState, units: np.ndarray, 
         return mu, jac * free[a, None, :]
 
     def weights(a: np.ndarray, mu: np.ndarray) -> np.ndarray:
-        var = np.maximum(mu + offset[a], 0.0) + read_var[a]
+        var = (np.maximum(mu + offset[a], 0.0) + read_var[a]) if data.poisson else read_var[a]
         return np.where(mask[a], 1.0 / np.maximum(var, data.floor), 0.0)
 
     def prior_chi2(a: np.ndarray, th: np.ndarray) -> np.ndarray:
@@ -234,3 +244,53 @@ def fit_units(data: FitData, base: np.ndarray, st: FitState, units: np.ndarray, 
     st.sigma_err[idx] = (sigma_fit * np.sqrt(var[:, s_sl]))[out]
     st.redchi[idx] = np.broadcast_to((chi2 / dof)[:, None], out.shape)[out]
     st.ok[idx] = np.broadcast_to((done & ~too_few & invertible)[:, None], out.shape)[out]
+
+
+def fit_windows(y: np.ndarray, var: np.ndarray, use: np.ndarray, x_start: np.ndarray,
+                sigma_start: float, sigma_bounds: tuple[float, float]) -> FitState:
+    """One pixel-integrated Gaussian plus a constant fitted to every row of ``y`` by :func:`fit_units`.
+
+    Pixel ``k`` of a row is centred at ``k``; the weights are ``1 / var`` on the ``use`` pixels
+    (the variance is given, not re-evaluated on the model). The rows are laid end to end,
+    far enough apart that the model of one row is exactly zero on the others (the normal CDF
+    is exactly 0 or 1 beyond 40 standard deviations), and fitted as units of one line each.
+
+    Parameters
+    ----------
+    y, var : ndarray, shape (N, M)
+        Profiles and their variances.
+    use : ndarray of bool, shape (N, M)
+        Pixels that count.
+    x_start : ndarray, shape (N,)
+        Starting centres (pixels of the row), within half a pixel of the middle pixel.
+    sigma_start : float
+        Starting standard deviation of every line (pixels; at least 0.3 is used).
+    sigma_bounds : (float, float)
+        Bounds of the standard deviation (pixels).
+
+    Returns
+    -------
+    FitState
+        One entry per row, centres in pixels of the row; ``ok`` marks converged fits with an
+        invertible normal matrix.
+    """
+    n, m = y.shape
+    low, high = sigma_bounds
+    stride = 2 * m + math.ceil(40.0 * high)
+    start = np.arange(n) * stride
+    pixels = (start[:, None] + np.arange(m)).ravel()
+    flux, read_var = np.zeros(n * stride), np.ones(n * stride)
+    fit_ok = np.zeros(n * stride, bool)
+    flux[pixels], read_var[pixels], fit_ok[pixels] = y.ravel(), var.ravel(), use.ravel()
+    background = np.median(np.concatenate([y[:, :2], y[:, -2:]], axis=1), axis=1)
+    line_flux = np.maximum(np.sum(np.where(use, y - background[:, None], 0.0), axis=1), 1e-3)
+    nan = np.full(n, np.nan)
+    st = FitState(x0=x_start + start, flux=line_flux, sigma=np.full(n, max(float(sigma_start), 0.3)),
+                  background=background, x_err=nan.copy(), flux_err=nan.copy(),
+                  sigma_err=nan.copy(), redchi=nan.copy(), ok=np.zeros(n, bool),
+                  sigma_lo=np.full(n, low), sigma_hi=np.full(n, high),
+                  prior_ln_sigma=np.zeros(n), prior_weight=np.zeros(n))
+    data = FitData(flux=flux, read_var=read_var, fit_ok=fit_ok, floor=1e-300, poisson=False)
+    fit_units(data, np.zeros(n * stride), st, np.arange(n)[:, None], np.full(n, (m - 1) // 2))
+    st.x0 -= start
+    return st

@@ -8,6 +8,7 @@ file and the problem.
 """
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -25,12 +26,15 @@ from .match import (Identification, associate, blend_distance_px, chance_log10_p
                     coincidence_probabilities, identify_lines)
 from .model_setup import PriorBox, nominal_model, prior_box
 from .optics import GratingModel
-from .peaks import PeakFlag, PeakTable, find_peaks
+from .peak_table import PeakFlag, PeakTable
+from .peaks import find_peaks
 from .profile import InstrumentProfile
-from .slit import SlitMeasurement, SlitShift, measure_slit, profile_slit_rows
 from .constants import SPEED_OF_LIGHT_KMS
+from .slit_shift import SlitShift
 from .solution import Solution
 from .status import Status
+from .tracing import (MIN_SLIT_ROWS, SlitMeasurement, central_rows, follow_lines, profile_slit_rows,
+                      refer_peaks, smeared, straighten)
 from .verdict import MIN_LINES_FAILED, VerdictInputs, judge
 
 __all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS", "ANCHOR_SIGMA_PX", "LINE_UNCERTAINTY_VERIFIED_NM",
@@ -122,8 +126,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     free_grooves : bool
         Also fit the groove density (normally fixed by the grating's ruling).
     trace_slit : bool
-        On a frame of at least :data:`~wavecal.slit.MIN_SLIT_ROWS` slit rows, follow the lines
-        along the slit and model their tilt and curvature (:func:`wavecal.slit.measure_slit`):
+        On a frame of at least :data:`~wavecal.tracing.MIN_SLIT_ROWS` slit rows, follow the lines
+        along the slit and model their tilt and curvature (:mod:`wavecal.tracing`):
         the line centres are referred to the slit's reference row (straightening the frame
         first if the lines are smeared in the sum) and the solution gives the wavelength at
         every pixel of the slit.
@@ -151,7 +155,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     peaks = find_peaks(spectrum, min_snr=min_snr)
     slit = None
     if trace_slit:
-        slit = measure_slit(frame, spectrum, peaks, min_snr=min_snr)
+        slit = _measure_slit(frame, spectrum, peaks, min_snr=min_snr)
         spectrum, peaks = slit.spectrum, slit.peaks
     line_list = load_line_list(lamps, medium=profile.medium)
     extras = tuple(e for e in POSSIBLE_EXTRAS if e not in {lamp.capitalize() for lamp in lamps})
@@ -179,6 +183,39 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     if details:
         return Calibration(solution, spectrum, peaks, ident, fit, nominal, box, slit)
     return solution
+
+
+def _measure_slit(frame: Frame, spectrum: Spectrum, peaks: PeakTable, *,
+                  min_snr: float) -> SlitMeasurement:
+    """Trace the slit of a frame and refer its spectrum's line centres to the reference row.
+
+    The lines to follow are the peaks of the spectrum of a narrow central band of
+    ``spectrum.rows`` (:func:`~wavecal.tracing.central_rows`), traced over ``spectrum.rows``
+    (:func:`~wavecal.tracing.follow_lines`). When they are smeared in the plain sum
+    (:func:`~wavecal.tracing.smeared`), the straightened frame is summed again and its peaks
+    found again: they lie at the lines' reference-row positions. Otherwise each peak centre of
+    the plain sum is moved to the reference row (:func:`~wavecal.tracing.refer_peaks`).
+    ``shift`` is None (and spectrum and peaks are unchanged) when the slit has fewer than
+    :data:`~wavecal.tracing.MIN_SLIT_ROWS` rows or too few lines could be followed.
+    """
+    unchanged = SlitMeasurement(spectrum, peaks, None, None, False)
+    start, stop = spectrum.rows
+    if stop - start < MIN_SLIT_ROWS or len(peaks) == 0:
+        return unchanged
+    central = find_peaks(extract_spectrum(frame, rows=central_rows(spectrum.rows)), min_snr=min_snr)
+    followed = follow_lines(frame, central, spectrum.rows)
+    if followed is None:
+        return unchanged
+    traces, shift = followed
+    if not smeared(shift, traces):
+        return SlitMeasurement(spectrum, refer_peaks(peaks, shift, traces), shift, traces, False)
+    straight = dataclasses.replace(
+        extract_spectrum(straighten(frame, shift, spectrum.rows), rows=(0, stop - start)),
+        rows=(start, stop))
+    straight_peaks = find_peaks(straight, min_snr=min_snr)
+    if len(straight_peaks) == 0:
+        return unchanged
+    return SlitMeasurement(straight, straight_peaks, shift, traces, True)
 
 
 def _detections(table: pd.DataFrame, min_snr: float, n_pixels: int) -> pd.DataFrame:

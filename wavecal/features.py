@@ -83,7 +83,7 @@ def resolve_lines(lines: LineList, model: GratingModel,
         Sets the local dispersion (nm per pixel) and the position of each line; the nominal
         model is close enough (its dispersion is known to a few per cent).
     fwhm_at : callable
-        Measured line width (pixels) at given pixels, e.g. :meth:`wavecal.peaks.PeakTable.fwhm_at`.
+        Measured line width (pixels) at given pixels, e.g. :meth:`wavecal.peak_table.PeakTable.fwhm_at`.
 
     Returns
     -------

@@ -1,6 +1,7 @@
 """Emission-line detection and sub-pixel centring in a one-dimensional spectrum.
 
-Steps of :func:`find_peaks`:
+Steps of :func:`find_peaks` (steps 0-3 in :mod:`wavecal._peak_detect`; the result is a
+:class:`~wavecal.peak_table.PeakTable`):
 
 0. **Spikes.** One- and two-pixel spikes much sharper than any line (cosmic-ray residue, hot
    pixels) are masked like bad pixels.
@@ -8,7 +9,7 @@ Steps of :func:`find_peaks`:
    the brightest isolated maxima. The lines are then detected and fitted once with it, and the
    widths of all well-measured lines give the **width model**: a robust low-order polynomial of
    ``ln FWHM`` in position (:mod:`wavecal._line_widths`), the expected FWHM at every pixel
-   (:meth:`PeakTable.fwhm_at`, column ``fwhm_expected``). Everything below is redone with it,
+   (:meth:`~wavecal.peak_table.PeakTable.fwhm_at`, column ``fwhm_expected``). Everything below is redone with it,
    and once more if it then moves at some line by more than the spread of widths about it.
 2. **Continuum.** A running median over ten FWHM (at least 31 pixels) of the pixels that are
    not part of a line (pixels 3 sigma above the current estimate, grown by one FWHM, are left
@@ -48,23 +49,21 @@ down-weights it through ``x_err``: no line is excluded here for its width alone.
 """
 from __future__ import annotations
 
-import enum
 import math
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy.ndimage import maximum_filter1d, median_filter, percentile_filter, uniform_filter1d
-from scipy.special import ndtr
 
-from ._line_fit import FitData, FitState, fit_units, profile
+from ._line_fit import FWHM_PER_SIGMA, FitData, FitState, fit_units, profile
 from ._line_widths import LINES_PER_COEFFICIENT, WidthModel, fit_width_model
+from ._peak_detect import (SpectrumData, check_inputs, detect_lines, estimate_continuum, find_spikes,
+                           starting_fwhm)
 from .extract import Spectrum
+from .peak_table import COLUMNS, PeakFlag, PeakTable
 
-__all__ = ["PeakFlag", "PeakTable", "WidthModel", "describe_flags", "find_peaks", "COLUMNS"]
+__all__ = ["find_peaks"]
 
-#: FWHM of a Gaussian in units of its standard deviation.
-FWHM_PER_SIGMA = 2.0 * math.sqrt(2.0 * math.log(2.0))
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 #: Starting FWHM (pixels) when no line is bright enough to measure one (common practice:
 #: spectrographs sample the line width with 2-4 pixels).
@@ -97,110 +96,6 @@ _NEIGHBOUR_LINES = 3
 #: the residual of the fit (real line profiles are not exactly Gaussian).
 _PROFILE_TOLERANCE = 0.03
 
-#: Columns of :attr:`PeakTable.table`.
-COLUMNS = ("x", "x_err", "fwhm", "fwhm_err", "flux", "flux_err", "amplitude", "background", "snr",
-           "redchi", "flags", "fwhm_expected")
-
-
-class PeakFlag(enum.IntFlag):
-    """Quality bits of a fitted line (column ``flags``; 0 means none)."""
-
-    #: A pixel within one expected FWHM of the centre is saturated; the centre comes from a fit
-    #: of the unsaturated wings (saturated pixels and their neighbours left out), the width from
-    #: a prior at the expected FWHM, and ``x_err`` from that fit.
-    SATURATED = 1
-    #: Fitted jointly with a line closer than ``blend_separation`` expected FWHM.
-    BLENDED = 2
-    #: Within ``edge_margin`` of an end of the spectrum or of a bad pixel.
-    EDGE = 4
-    #: The fit failed, did not converge, gave a non-positive flux or moved the centre by more
-    #: than an expected FWHM from the detection.
-    POOR_FIT = 8
-    #: FWHM significantly (5 sigma) and strongly (by more than a factor 1.25) unlike the FWHM
-    #: expected at its position (``fwhm_expected``, from the width model; the ratio is
-    #: ``fwhm / fwhm_expected``). A wider line may be an unresolved blend: its ``x_err``
-    #: includes the possible offset of the blend's centroid from its brighter component. Such
-    #: a line is to be down-weighted through its ``x_err``, never excluded for its width alone.
-    ODD_WIDTH = 16
-
-
-def describe_flags(value: int) -> tuple[str, ...]:
-    """Names of the :class:`PeakFlag` bits set in ``value`` (empty for 0).
-
-    >>> describe_flags(5)
-    ('SATURATED', 'EDGE')
-    """
-    value = int(value)
-    return tuple(flag.name for flag in PeakFlag if value & flag)
-
-
-@dataclass(frozen=True, eq=False)
-class PeakTable:
-    """Lines found in a spectrum.
-
-    Attributes
-    ----------
-    table : pandas.DataFrame
-        One row per line, sorted by ``x``, with columns :data:`COLUMNS`: ``x`` (centre, raw
-        pixel coordinate of the spectrum), ``x_err`` (1-sigma), ``fwhm`` and ``fwhm_err``
-        (pixels; ``fwhm_err`` is NaN when the width was not measured, as for saturated lines),
-        ``flux`` and ``flux_err`` (electrons), ``amplitude`` (peak of the Gaussian, electrons per
-        pixel), ``background`` (continuum plus local background under the line, electrons per
-        pixel), ``snr`` (``flux / flux_err``; NaN when that is not finite), ``redchi`` (reduced
-        chi-square of the fit), ``flags`` (a :class:`PeakFlag` bit mask) and ``fwhm_expected``
-        (the width model's FWHM at ``x``, pixels).
-    fwhm_typical : float
-        Typical FWHM of the lines in pixels: the median of the width model over the spectrum.
-    width_model : WidthModel, optional
-        Expected FWHM along the spectrum (in index units of the spectrum; use :meth:`fwhm_at`).
-    x_offset : float
-        Coordinate ``x`` of the spectrum's first pixel.
-    """
-
-    table: pd.DataFrame
-    fwhm_typical: float
-    width_model: WidthModel | None = None
-    x_offset: float = 0.0
-
-    def __len__(self) -> int:
-        return len(self.table)
-
-    def good(self) -> pd.DataFrame:
-        """Rows with no flag set."""
-        return self.table[self.table["flags"] == 0]
-
-    def fwhm_at(self, x: np.ndarray | float) -> np.ndarray:
-        """Expected FWHM (pixels) at positions ``x`` (coordinates of the spectrum).
-
-        The width model is clamped at the ends of the range of the lines it was fitted to;
-        without a width model, :attr:`fwhm_typical` everywhere.
-        """
-        x = np.asarray(x, dtype=np.float64)
-        if self.width_model is None:
-            return np.full(x.shape, self.fwhm_typical)
-        return self.width_model(x - self.x_offset)
-
-    def by_strength(self) -> pd.DataFrame:
-        """The rows ordered by decreasing ``snr``; a row whose ``snr`` is not finite comes last."""
-        snr = self.table["snr"].to_numpy(np.float64)
-        key = np.where(np.isfinite(snr), -snr, np.inf)
-        return self.table.iloc[np.argsort(key, kind="stable")]
-
-    def to_table(self) -> pd.DataFrame:
-        """A copy of the table with an extra ``flag_names`` column."""
-        out = self.table.copy()
-        out["flag_names"] = ["|".join(describe_flags(v)) for v in out["flags"]]
-        return out
-
-    def summary(self) -> dict:
-        """JSON-safe counts: lines, unflagged lines, lines per flag, typical FWHM."""
-        flags = self.table["flags"].to_numpy()
-        return {
-            "n_peaks": int(len(self.table)),
-            "n_good": int(np.count_nonzero(flags == 0)),
-            "fwhm_typical": None if not np.isfinite(self.fwhm_typical) else float(self.fwhm_typical),
-            "flag_counts": {flag.name: int(np.count_nonzero(flags & flag)) for flag in PeakFlag},
-        }
 
 
 def find_peaks(spectrum: Spectrum, *, min_snr: float = 5.0, fwhm_guess: float | None = None,
@@ -235,18 +130,18 @@ def find_peaks(spectrum: Spectrum, *, min_snr: float = 5.0, fwhm_guess: float | 
     flux = np.asarray(spectrum.flux, dtype=np.float64)
     variance = np.asarray(spectrum.variance, dtype=np.float64)
     x = np.asarray(spectrum.x, dtype=np.float64)
-    _check_inputs(flux, variance, x, min_snr, fwhm_guess, blend_separation)
+    check_inputs(flux, variance, x, min_snr, fwhm_guess, blend_separation)
     usable = np.isfinite(flux) & np.isfinite(variance) & (variance > 0) & ~np.asarray(spectrum.bad, bool)
     saturated = np.asarray(spectrum.saturated, bool) & np.isfinite(flux)
     if not usable.any():
         return PeakTable(table=_empty_frame(), fwhm_typical=math.nan, x_offset=float(x[0]))
-    data = _Data(flux, variance, usable, saturated)
-    fwhm = float(fwhm_guess) if fwhm_guess is not None else _initial_fwhm(data, min_snr)
+    data = SpectrumData(flux, variance, usable, saturated)
+    fwhm = float(fwhm_guess) if fwhm_guess is not None else starting_fwhm(data, min_snr)
     if not np.isfinite(fwhm):
         fwhm = _DEFAULT_FWHM
-    spikes = _spikes(data, fwhm)
+    spikes = find_spikes(data, fwhm)
     if spikes.any():
-        data = _Data(flux, variance, usable & ~spikes, saturated)
+        data = SpectrumData(flux, variance, usable & ~spikes, saturated)
     widths = WidthModel.constant(fwhm, data.n)
     # a first fit of the detected lines measures the width model; then everything is measured
     # with it, again while the model moves at some line by more than the spread of widths
@@ -265,204 +160,6 @@ def find_peaks(spectrum: Spectrum, *, min_snr: float = 5.0, fwhm_guess: float | 
 
 
 # ------------------------------------------------------------------------------------------------
-# Input handling
-# ------------------------------------------------------------------------------------------------
-
-class _Data:
-    """The spectrum as the fitting code sees it."""
-
-    def __init__(self, flux: np.ndarray, variance: np.ndarray, usable: np.ndarray,
-                 saturated: np.ndarray) -> None:
-        self.n = flux.size
-        self.usable = usable
-        self.saturated = saturated
-        fill = float(np.median(variance[usable]))
-        self.flux = np.where(usable | saturated, np.nan_to_num(flux), 0.0)
-        self.variance = np.where(usable, variance, fill)
-        positive = variance[usable & (variance > 0)]
-        floor = 0.01 * float(np.median(positive)) if positive.size else 1.0
-        #: The part of the variance not proportional to the signal (read noise etc.).
-        self.read_var = np.maximum(self.variance - np.maximum(self.flux, 0.0), 0.0)
-        self.floor = max(floor, 1e-300)
-        #: Pixels the fit may use: usable, not saturated nor next to a saturated pixel.
-        near_sat = saturated.copy()
-        near_sat[1:] |= saturated[:-1]
-        near_sat[:-1] |= saturated[1:]
-        self.fit_ok = usable & ~near_sat
-
-
-def _check_inputs(flux, variance, x, min_snr, fwhm_guess, blend_separation) -> None:
-    if flux.ndim != 1 or flux.size < 5:
-        msg = f"spectrum must be 1-D with at least 5 pixels, got shape {flux.shape}"
-        raise ValueError(msg)
-    if variance.shape != flux.shape or x.shape != flux.shape:
-        msg = "spectrum x, flux and variance must have the same shape"
-        raise ValueError(msg)
-    if not np.allclose(np.diff(x), 1.0):
-        msg = "spectrum x must advance by exactly one per pixel"
-        raise ValueError(msg)
-    if not min_snr > 0:
-        msg = f"min_snr must be positive, got {min_snr}"
-        raise ValueError(msg)
-    if fwhm_guess is not None and not (np.isfinite(fwhm_guess) and fwhm_guess > 0):
-        msg = f"fwhm_guess must be a positive number, got {fwhm_guess}"
-        raise ValueError(msg)
-    if not blend_separation >= 0:
-        msg = f"blend_separation must be non-negative, got {blend_separation}"
-        raise ValueError(msg)
-
-
-# ------------------------------------------------------------------------------------------------
-# Continuum, width estimate, detection
-# ------------------------------------------------------------------------------------------------
-
-def _continuum(data: _Data, fwhm: float) -> np.ndarray:
-    """Robust continuum under the lines.
-
-    A running 20th percentile gives a first, low estimate. Then, three times: pixels more than
-    3 sigma above the estimate, grown by one FWHM on each side, are taken as line pixels, and a
-    running median of the other pixels is computed (line pixels are replaced alternately by a
-    huge positive and negative value, which leaves the median of the rest unchanged). The
-    result is smoothed with a running mean of the same width (ten FWHM, at least 31 pixels).
-    """
-    width = _window(max(10.0 * fwhm, 31.0), data.n)
-    sigma = np.sqrt(data.variance)
-    grow = 2 * max(1, int(round(fwhm))) + 1
-    index = np.arange(data.n)
-    invalid = ~(data.usable | data.saturated)
-    values = data.flux
-    if invalid.any():
-        values = np.interp(index, index[~invalid], values[~invalid])
-    base = percentile_filter(values, 20, size=width, mode="reflect")
-    huge = 1e30 * np.where(index % 2 == 0, 1.0, -1.0)
-    for _ in range(3):
-        line = maximum_filter1d((values - base > 3.0 * sigma).astype(np.uint8), size=grow).astype(bool)
-        line |= invalid
-        masked_median = median_filter(np.where(line, huge, values), size=width, mode="reflect")
-        reliable = np.abs(masked_median) < 1e29
-        if not reliable.any():
-            break
-        base = np.interp(index, index[reliable], masked_median[reliable])
-    return uniform_filter1d(base, size=width, mode="nearest")
-
-
-def _window(value: float, n: int) -> int:
-    """Odd filter size near ``value`` (at least 11), no longer than the spectrum."""
-    size = max(11, int(round(value)))
-    size = size if size % 2 else size + 1
-    return min(size, n if n % 2 else n - 1)
-
-
-def _initial_fwhm(data: _Data, min_snr: float) -> float:
-    """Median half-maximum width of the brightest (S/N > 10 in three pixels) isolated maxima
-    (NaN if none)."""
-    base = median_filter(data.flux, size=_window(101, data.n), mode="nearest")
-    r = data.flux - base
-    smooth = uniform_filter1d(r, size=3, mode="nearest")
-    snr = smooth * np.sqrt(3.0) / np.sqrt(data.variance)
-    is_max = (smooth == maximum_filter1d(smooth, size=7)) & (snr > max(min_snr, 10.0))
-    is_max &= data.usable & ~maximum_filter1d(data.saturated.astype(np.uint8), size=7).astype(bool)
-    idx = np.flatnonzero(is_max)
-    if idx.size == 0:
-        return math.nan
-    idx = idx[np.argsort(r[idx])[::-1][:40]]
-    widths = []
-    for i in idx:
-        if r[i] <= 0:
-            continue
-        half = r[i] / 2.0
-        left = _half_crossing(r, i, half, -1)
-        right = _half_crossing(r, i, half, +1)
-        if left is not None and right is not None:
-            widths.append(right - left)
-    if not widths:
-        return math.nan
-    return float(max(np.median(widths), 1.0))
-
-
-def _half_crossing(r: np.ndarray, i: int, half: float, step: int) -> float | None:
-    j = i
-    for _ in range(60):
-        k = j + step
-        if k < 0 or k >= r.size:
-            return None
-        if r[k] > r[j] * 1.05 and r[k] > half:  # rising again before half maximum: not isolated
-            return None
-        if r[k] <= half:
-            frac = (r[j] - half) / (r[j] - r[k])
-            return j + step * frac
-        j = k
-    return None
-
-
-def _spikes(data: _Data, fwhm: float) -> np.ndarray:
-    """One- and two-pixel spikes far sharper than any line (cosmic-ray residue, hot pixels).
-
-    A pixel (or pair) is a spike when it exceeds ``1.5 ×`` the mean of its two neighbours (if
-    positive) times the centre-to-neighbour ratio of a line half as wide as ``fwhm`` by more
-    than 5 sigma, after subtraction of a running 10th percentile over four FWHM (which stays
-    below the neighbours of a line even among crowded lines). A line of any width down to half
-    the typical one fails this test at every sub-pixel phase.
-    """
-    sigma = 0.5 * fwhm / FWHM_PER_SIGMA
-    pixel = ndtr(np.array([0.5, 1.5, 1.0, 2.0]) / sigma)
-    ratio_one = 1.5 * (2.0 * pixel[0] - 1.0) / (pixel[1] - pixel[0])
-    ratio_two = 1.5 * (pixel[2] - 0.5) / (pixel[3] - pixel[2])
-    size = 2 * int(math.ceil(2.0 * fwhm)) + 1
-    y = data.flux - percentile_filter(data.flux, 10, size=min(size, data.n), mode="nearest")
-    y = np.where(data.usable & ~data.saturated, y, np.nan)
-    v = data.variance
-    spikes = np.zeros(data.n, bool)
-    with np.errstate(invalid="ignore"):
-        excess = y[1:-1] - ratio_one * np.maximum(0.5 * (y[:-2] + y[2:]), 0.0)
-        noise = np.sqrt(v[1:-1] + ratio_one ** 2 * 0.25 * (v[:-2] + v[2:]))
-        spikes[1:-1] |= excess > 5.0 * noise
-        pair = 0.5 * (y[1:-2] + y[2:-1])
-        excess = pair - ratio_two * np.maximum(0.5 * (y[:-3] + y[3:]), 0.0)
-        noise = np.sqrt(0.25 * (v[1:-2] + v[2:-1]) + ratio_two ** 2 * 0.25 * (v[:-3] + v[3:]))
-        two = excess > 5.0 * noise
-    spikes[1:-2] |= two
-    spikes[2:-1] |= two
-    return spikes
-
-
-def _pixel_gaussian(fwhm: float) -> np.ndarray:
-    sigma = fwhm / FWHM_PER_SIGMA
-    h = max(1, int(math.ceil(3.0 * sigma)))
-    u = np.arange(-h, h + 1, dtype=float)
-    k = ndtr((u + 0.5) / sigma) - ndtr((u - 0.5) / sigma)
-    return k / k.sum()
-
-
-def _detect(data: _Data, residual: np.ndarray, fwhm: float, min_snr: float, use: np.ndarray, *,
-            variance: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Candidate positions (float, index units) and matched-filter flux estimates.
-
-    ``use`` marks the pixels whose residual may be used; the others count as zero. ``variance``
-    replaces the spectrum's variance in the signal-to-noise ratio.
-    """
-    k = _pixel_gaussian(fwhm)
-    r = np.where(use, residual, 0.0)
-    num = np.correlate(r, k, mode="same")
-    den = np.sqrt(np.correlate(data.variance if variance is None else variance, k * k, mode="same"))
-    snr = num / den
-    size = 2 * int(math.ceil(0.5 * fwhm)) + 1
-    is_max = (num == maximum_filter1d(num, size=size, mode="nearest")) & (snr >= min_snr) & (num > 0)
-    idx = np.flatnonzero(is_max)
-    if idx.size > 1:  # equal values on a plateau: keep the first of each run
-        keep = np.concatenate(([True], np.diff(idx) > size // 2))
-        idx = idx[keep]
-    inner = np.clip(idx, 1, data.n - 2)
-    y0, y1, y2 = num[inner - 1], num[inner], num[inner + 1]
-    curv = y0 - 2.0 * y1 + y2
-    shift = np.where(curv < 0, 0.5 * (y0 - y2) / np.where(curv < 0, curv, -1.0), 0.0)
-    pos = inner + np.clip(shift, -0.5, 0.5)
-    pos = np.where(idx == inner, pos, idx.astype(float))
-    amp = num[idx] / np.sum(k * k)
-    return pos, amp
-
-
-# ------------------------------------------------------------------------------------------------
 # Fitting all lines: groups, chunks, passes, satellites
 # ------------------------------------------------------------------------------------------------
 
@@ -478,7 +175,7 @@ class _Result:
     continuum: np.ndarray
 
 
-def _measure(data: _Data, widths: WidthModel, min_snr: float, blend_separation: float, *,
+def _measure(data: SpectrumData, widths: WidthModel, min_snr: float, blend_separation: float, *,
              full: bool) -> _Result:
     """Continuum, detection and fit; when ``full``, a second detection on the residual of the
     fit, and a last fit without wing satellites.
@@ -489,15 +186,15 @@ def _measure(data: _Data, widths: WidthModel, min_snr: float, blend_separation: 
     fitted with zero flux (no line) are dropped, and the rest fitted once more.
     """
     typical = widths.median(data.n)
-    base = _continuum(data, typical)
-    pos, amp = _detect(data, data.flux - base, typical, min_snr, data.usable | data.saturated)
+    base = estimate_continuum(data, typical)
+    pos, amp = detect_lines(data, data.flux - base, typical, min_snr, data.usable | data.saturated)
     res = _fit_lines(data, base, pos, amp, pos, widths, blend_separation)
     if not full or pos.size == 0:
         return res
     st = res.st
     model = _line_model(res)
     allowance = data.variance + (_PROFILE_TOLERANCE * model) ** 2
-    new, new_amp = _detect(data, data.flux - base - model, typical, min_snr, data.fit_ok, variance=allowance)
+    new, new_amp = detect_lines(data, data.flux - base - model, typical, min_snr, data.fit_ok, variance=allowance)
     if new.size:
         nearest = np.min(np.abs(new[:, None] - st.x0[None, :]), axis=1)
         keep = nearest > widths(new)
@@ -515,7 +212,7 @@ def _measure(data: _Data, widths: WidthModel, min_snr: float, blend_separation: 
                       res.x_init[keep], widths, blend_separation)
 
 
-def _fit_lines(data: _Data, base: np.ndarray, pos: np.ndarray, amp: np.ndarray, x_init: np.ndarray,
+def _fit_lines(data: SpectrumData, base: np.ndarray, pos: np.ndarray, amp: np.ndarray, x_init: np.ndarray,
                widths: WidthModel, blend_separation: float) -> _Result:
     """Fit all lines starting at ``pos``.
 
@@ -635,7 +332,7 @@ def _line_model(res: _Result) -> np.ndarray:
     return model
 
 
-def _saturated_lines(data: _Data, pos: np.ndarray, fwhm: np.ndarray) -> np.ndarray:
+def _saturated_lines(data: SpectrumData, pos: np.ndarray, fwhm: np.ndarray) -> np.ndarray:
     if not data.saturated.any() or pos.size == 0:
         return np.zeros(pos.size, bool)
     sat_idx = np.flatnonzero(data.saturated)
@@ -645,7 +342,7 @@ def _saturated_lines(data: _Data, pos: np.ndarray, fwhm: np.ndarray) -> np.ndarr
     return np.minimum(left, right) <= np.maximum(fwhm, 1.0)
 
 
-def _saturated_centres(data: _Data, pos: np.ndarray) -> np.ndarray:
+def _saturated_centres(data: SpectrumData, pos: np.ndarray) -> np.ndarray:
     """Midpoint of the saturated run nearest to each position (the position if none)."""
     out = pos.copy()
     sat = data.saturated
@@ -705,7 +402,7 @@ def _width_model(res: _Result, fallback: WidthModel, n: int) -> WidthModel:
                            n, fallback=fallback)
 
 
-def _distance_to_bad(data: _Data, pos: np.ndarray) -> np.ndarray:
+def _distance_to_bad(data: SpectrumData, pos: np.ndarray) -> np.ndarray:
     """Distance (pixels) from each position to the nearest bad pixel or spectrum end."""
     ends = np.minimum(pos + 0.5, data.n - 0.5 - pos)
     bad_idx = np.flatnonzero(~(data.usable | data.saturated))
@@ -719,7 +416,7 @@ def _distance_to_bad(data: _Data, pos: np.ndarray) -> np.ndarray:
     return np.minimum(ends, np.minimum(np.abs(left), np.abs(right)) - 0.5)
 
 
-def _table(data: _Data, res: _Result, widths: WidthModel, margin: float, x_offset: float) -> PeakTable:
+def _table(data: SpectrumData, res: _Result, widths: WidthModel, margin: float, x_offset: float) -> PeakTable:
     st = res.st
     n = st.x0.size
     typical = widths.median(data.n)

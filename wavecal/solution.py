@@ -9,7 +9,7 @@ the verdict (``status`` and ``reasons``). The JSON layout is documented in the R
 Whole slit
 ----------
 The physical model gives the wavelength along the *reference row* of the slit. A solution of a
-long-slit frame also carries a :class:`~wavecal.slit.SlitShift` ``Δ(x, y)``: a line at ``x`` on
+long-slit frame also carries a :class:`~wavecal.slit_shift.SlitShift` ``Δ(x, y)``: a line at ``x`` on
 the reference row lies at ``x + Δ(x, y)`` on row ``y`` (``y`` the 0-based pixel along the spatial
 axis of the raw frame), so the wavelength at ``(x, y)`` is the model's at the reference-row
 position ``r`` solving ``r + Δ(r, y) = x``. Without a slit model (a single row, or
@@ -45,7 +45,7 @@ from .validation import (
 from .airvac import air_to_vacuum, vacuum_to_air
 from .fit import wavelength_sigma
 from .optics import GratingModel
-from .slit import SlitShift
+from .slit_shift import SlitShift
 from .status import Status
 
 __all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "READABLE_VERSIONS", "STATUSES"]

@@ -15,9 +15,9 @@ from typing import Any
 import numpy as np
 
 from .._atomic import atomic_write_bytes, atomic_write_text
-from ..peaks import describe_flags
 from .._json import jsonable
 from .._stems import file_stem
+from ..peak_table import describe_flags
 from ..solution import Solution
 from ..status import Status
 from . import figures
