@@ -14,6 +14,7 @@ from wavecal.frames import frame_from_array
 from wavecal.night.synthetic import night_profile
 from wavecal.report import (load_spectrum, save_spectrum, spectrum_path, write_frame_report,
                             write_night_report)
+from wavecal.report.canvas import Canvas
 from wavecal.report.command import add_report_arguments, run_report_command
 from wavecal.simulate import simulate_arc
 from wavecal.solution import load_solution
@@ -29,9 +30,18 @@ def calibration():
     return calibrate_frame(frame, profile, details=True)
 
 
-def test_frame_report_files_and_json_twin(calibration, tmp_path):
+def test_frame_report_files_and_json_twin(calibration, tmp_path, monkeypatch):
     sol = calibration.solution
+    drawn = []
+    draw_text = Canvas.text
+
+    def recording_text(self, x, y, text, **options):
+        drawn.append(text)
+        return draw_text(self, x, y, text, **options)
+
+    monkeypatch.setattr(Canvas, "text", recording_text)
     rep = write_frame_report(sol, tmp_path, spectrum=calibration.spectrum)
+    monkeypatch.undo()
     assert rep.html.name == "arc_0001.report.html"
     assert {p.name for p in rep.pngs} >= {"arc_0001.spectrum.png", "arc_0001.residuals.png",
                                           "arc_0001.quality.png"}
@@ -46,7 +56,11 @@ def test_frame_report_files_and_json_twin(calibration, tmp_path):
     assert [p["name"] for p in facts["parameters"]] == [p["name"] for p in sol.parameters]
     assert facts["identification_counts"]["used"] == int(
         (sol.lines["identification"] == "used").sum())
-    # the spectrum figure labels the used lines with wavelength and element
+    # the spectrum figure labels the used lines with wavelength and element ("546.07 Hg")
+    used = sol.lines[sol.lines["identification"] == "used"]
+    labels = {f"{lam:.2f} {element}" for lam, element in zip(used["line_wavelength"], used["element"])}
+    assert len(labels) == len(used) >= 8
+    assert labels <= set(drawn), sorted(labels - set(drawn))
     assert sol.slit is not None and "arc_0001.slit.png" in facts["figures"]
 
 
@@ -91,11 +105,9 @@ def test_regenerate_from_saved_solution(calibration, tmp_path):
     assert run_report_command(parser.parse_args([str(tmp_path / "missing.solution.json")])) == 1
 
 
-def test_night_report_orders_failed_first(tmp_path):
+def test_night_report_orders_failed_first(small_night, tmp_path):
     from wavecal.night import run_night
-    from wavecal.night.synthetic import make_night
-    night = make_night(tmp_path / "raw", n_arcs=2, n_science=1, n_bias=1, n_flats=0)
-    res = run_night(tmp_path / "raw", night.profile, tmp_path / "out", reports=False)
+    res = run_night(small_night.root, small_night.profile, tmp_path / "out", reports=False)
     assert not (tmp_path / "out" / "night_report.html").exists()
     rep = write_night_report(tmp_path / "out")
     facts = json.loads(rep.json.read_text())
@@ -112,11 +124,9 @@ def test_night_report_orders_failed_first(tmp_path):
     assert good_arcs and all(a["report"] and a["n_used"] > 0 for a in good_arcs)
 
 
-def test_night_page_puts_problems_first_and_never_prints_nan(tmp_path):
+def test_night_page_puts_problems_first_and_never_prints_nan(small_night, tmp_path):
     from wavecal.night import run_night
-    from wavecal.night.synthetic import make_night
-    make = make_night(tmp_path / "raw", n_arcs=2, n_science=1, n_bias=1, n_flats=0)
-    run_night(tmp_path / "raw", make.profile, tmp_path / "out", reports=False)
+    run_night(small_night.root, small_night.profile, tmp_path / "out", reports=False)
     text = write_night_report(tmp_path / "out", frames=False).html.read_text()
     assert not re.search(r">\s*nan\s*<", text, flags=re.IGNORECASE)  # missing values are blank
     assert "-0.000" not in text
