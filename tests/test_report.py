@@ -4,7 +4,9 @@ from __future__ import annotations
 import argparse
 import json
 import re
+import shutil
 from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -105,9 +107,22 @@ def test_regenerate_from_saved_solution(calibration, tmp_path):
     assert run_report_command(parser.parse_args([str(tmp_path / "missing.solution.json")])) == 1
 
 
-def test_night_report_orders_failed_first(small_night, tmp_path):
+@pytest.fixture(scope="module")
+def night_without_reports(small_night, tmp_path_factory):
+    """The small night run once without reports; tests write their reports into a copy."""
     from wavecal.night import run_night
-    res = run_night(small_night.root, small_night.profile, tmp_path / "out", reports=False)
+    out = tmp_path_factory.mktemp("night_without_reports") / "out"
+    return run_night(small_night.root, small_night.profile, out, reports=False)
+
+
+def night_output(result, tmp_path: Path) -> Path:
+    """A private copy of a night's output folder."""
+    return Path(shutil.copytree(result.out_dir, tmp_path / "out"))
+
+
+def test_night_report_orders_failed_first(night_without_reports, tmp_path):
+    res = night_without_reports
+    night_output(res, tmp_path)
     assert not (tmp_path / "out" / "night_report.html").exists()
     rep = write_night_report(tmp_path / "out")
     facts = json.loads(rep.json.read_text())
@@ -124,10 +139,9 @@ def test_night_report_orders_failed_first(small_night, tmp_path):
     assert good_arcs and all(a["report"] and a["n_used"] > 0 for a in good_arcs)
 
 
-def test_night_page_puts_problems_first_and_never_prints_nan(small_night, tmp_path):
-    from wavecal.night import run_night
-    run_night(small_night.root, small_night.profile, tmp_path / "out", reports=False)
-    text = write_night_report(tmp_path / "out", frames=False).html.read_text()
+def test_night_page_puts_problems_first_and_never_prints_nan(night_without_reports, tmp_path):
+    text = write_night_report(night_output(night_without_reports, tmp_path),
+                              frames=False).html.read_text()
     assert not re.search(r">\s*nan\s*<", text, flags=re.IGNORECASE)  # missing values are blank
     assert "-0.000" not in text
     attention = text.index("Needs attention")
