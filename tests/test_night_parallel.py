@@ -33,6 +33,7 @@ def test_two_workers_match_serial(small, tmp_path):
     assert sum(line.startswith("[") for line in lines) == 6 + 4 + 1
 
 
+@pytest.mark.dask
 def test_dask_local_cluster_matches_serial(small, tmp_path):
     import distributed  # the optional extra "dask", part of the test extra
 

@@ -8,7 +8,6 @@ whole-slit issue asks of a calibrated header (common practice: a tenth of a pixe
 from __future__ import annotations
 
 import hashlib
-import os
 import stat
 
 import astropy.units as u
@@ -115,8 +114,13 @@ def test_calibrated_science_wcs_matches_the_truth(result, night):
         assert "between" in rows.loc[name, "solution_used"]  # interpolated: drift is large
         lam, header = wcs_wavelength_nm(result.out_dir / rows.loc[name, "product"])
         sim = night.truth[name]
-        # raw column of the product's first column: the keyword apply writes (WCORIGX)
-        x = np.arange(lam.shape[1], dtype=float) + header["WCORIGX"]
+        # the product keeps every column of the raw frame (the night camera has no overscan
+        # and no trim section), so its first column is raw column 0: the keyword apply writes
+        # (WCORIGX) must say so, and the wavelengths are checked at those raw columns
+        first, stop = night.profile.detector.dispersion_range
+        assert (first, stop) == (0, sim.data.shape[1]) == (0, lam.shape[1])
+        assert header["WCORIGX"] == first
+        x = np.arange(lam.shape[1], dtype=float) + first
         rows_lit = np.arange(*sim.slit_rows)
         truth = sim.true_wavelength(x)
         # every lit pixel, extrapolated ones included: make_night chooses settings whose lamp

@@ -4,7 +4,9 @@ from __future__ import annotations
 import argparse
 import json
 import re
+import shutil
 from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -15,6 +17,7 @@ from wavecal.night.synthetic import night_profile
 from wavecal.report import (load_spectrum, save_spectrum, spectrum_path, write_frame_report,
                             write_night_report)
 from wavecal.cli.report import add_report_arguments, run_report_command
+from wavecal.report.canvas import Canvas
 from wavecal.simulate import simulate_arc
 from wavecal.solution import load_solution
 
@@ -29,9 +32,18 @@ def calibration():
     return calibrate_frame(frame, profile, details=True)
 
 
-def test_frame_report_files_and_json_twin(calibration, tmp_path):
+def test_frame_report_files_and_json_twin(calibration, tmp_path, monkeypatch):
     sol = calibration.solution
+    drawn = []
+    draw_text = Canvas.text
+
+    def recording_text(self, x, y, text, **options):
+        drawn.append(text)
+        return draw_text(self, x, y, text, **options)
+
+    monkeypatch.setattr(Canvas, "text", recording_text)
     rep = write_frame_report(sol, tmp_path, spectrum=calibration.spectrum)
+    monkeypatch.undo()
     assert rep.html.name == "arc_0001.report.html"
     assert {p.name for p in rep.pngs} >= {"arc_0001.spectrum.png", "arc_0001.residuals.png",
                                           "arc_0001.quality.png"}
@@ -46,7 +58,11 @@ def test_frame_report_files_and_json_twin(calibration, tmp_path):
     assert [p["name"] for p in facts["parameters"]] == [p["name"] for p in sol.parameters]
     assert facts["identification_counts"]["used"] == int(
         (sol.lines["identification"] == "used").sum())
-    # the spectrum figure labels the used lines with wavelength and element
+    # the spectrum figure labels the used lines with wavelength and element ("546.07 Hg")
+    used = sol.lines[sol.lines["identification"] == "used"]
+    labels = {f"{lam:.2f} {element}" for lam, element in zip(used["line_wavelength"], used["element"])}
+    assert len(labels) == len(used) >= 8
+    assert labels <= set(drawn), sorted(labels - set(drawn))
     assert sol.slit is not None and "arc_0001.slit.png" in facts["figures"]
 
 
@@ -91,11 +107,22 @@ def test_regenerate_from_saved_solution(calibration, tmp_path):
     assert run_report_command(parser.parse_args([str(tmp_path / "missing.solution.json")])) == 1
 
 
-def test_night_report_orders_failed_first(tmp_path):
+@pytest.fixture(scope="module")
+def night_without_reports(small_night, tmp_path_factory):
+    """The small night run once without reports; tests write their reports into a copy."""
     from wavecal.night import run_night
-    from wavecal.night.synthetic import make_night
-    night = make_night(tmp_path / "raw", n_arcs=2, n_science=1, n_bias=1, n_flats=0)
-    res = run_night(tmp_path / "raw", night.profile, tmp_path / "out", reports=False)
+    out = tmp_path_factory.mktemp("night_without_reports") / "out"
+    return run_night(small_night.root, small_night.profile, out, reports=False)
+
+
+def night_output(result, tmp_path: Path) -> Path:
+    """A private copy of a night's output folder."""
+    return Path(shutil.copytree(result.out_dir, tmp_path / "out"))
+
+
+def test_night_report_orders_failed_first(night_without_reports, tmp_path):
+    res = night_without_reports
+    night_output(res, tmp_path)
     assert not (tmp_path / "out" / "night_report.html").exists()
     rep = write_night_report(tmp_path / "out")
     facts = json.loads(rep.json.read_text())
@@ -112,12 +139,9 @@ def test_night_report_orders_failed_first(tmp_path):
     assert good_arcs and all(a["report"] and a["n_used"] > 0 for a in good_arcs)
 
 
-def test_night_page_puts_problems_first_and_never_prints_nan(tmp_path):
-    from wavecal.night import run_night
-    from wavecal.night.synthetic import make_night
-    make = make_night(tmp_path / "raw", n_arcs=2, n_science=1, n_bias=1, n_flats=0)
-    run_night(tmp_path / "raw", make.profile, tmp_path / "out", reports=False)
-    text = write_night_report(tmp_path / "out", frames=False).html.read_text()
+def test_night_page_puts_problems_first_and_never_prints_nan(night_without_reports, tmp_path):
+    text = write_night_report(night_output(night_without_reports, tmp_path),
+                              frames=False).html.read_text()
     assert not re.search(r">\s*nan\s*<", text, flags=re.IGNORECASE)  # missing values are blank
     assert "-0.000" not in text
     attention = text.index("Needs attention")

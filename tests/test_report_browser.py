@@ -15,7 +15,8 @@ from pathlib import Path
 import pytest
 
 from wavecal.night import run_night
-from wavecal.night.synthetic import make_night
+
+pytestmark = pytest.mark.browser
 
 #: Set to 1 to make a missing Chromium a failure rather than a skip (CI).
 REQUIRE_VARIABLE = "WAVECAL_REQUIRE_BROWSER"
@@ -50,11 +51,10 @@ def _console(stderr: str) -> list[str]:
 
 
 @pytest.fixture(scope="module")
-def night_out(tmp_path_factory) -> Path:
-    root = tmp_path_factory.mktemp("browser_night")
-    night = make_night(root / "raw", n_arcs=2, n_science=1, n_bias=1, n_flats=0)
-    run_night(root / "raw", night.profile, root / "out")
-    return root / "out"
+def night_out(small_night, tmp_path_factory) -> Path:
+    out = tmp_path_factory.mktemp("browser_night") / "out"
+    run_night(small_night.root, small_night.profile, out)
+    return out
 
 
 def test_console_check_detects_errors(tmp_path):

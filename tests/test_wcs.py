@@ -15,6 +15,7 @@ Pixel conventions: astropy's ``wcs_pix2world(..., 0)`` takes 0-based pixels, as 
 """
 from __future__ import annotations
 
+import dataclasses
 import io
 
 import numpy as np
@@ -54,28 +55,6 @@ def make_solution(model: GratingModel, medium: str = "air", axis: int = 1) -> So
     lo, hi = 0.1 * model.n_pixels, 0.9 * model.n_pixels
     return Solution(status="ok", reasons=(), medium=medium, model=model, lines=pd.DataFrame(),
                     covered_range_px=(lo, hi), dispersion_axis=axis)
-
-
-class TiltedSolution:
-    """A solution whose lines tilt and curve along the slit (the public Solution interface).
-
-    λ(x, y) = λ_ref(x + a·d + b·d²), d = y − y_ref: the shape of a tilted, curved slit image.
-    """
-
-    def __init__(self, base: Solution, tilt: float = 0.02, curvature: float = 3e-4,
-                 y_ref: float = 20.0):
-        self.base, self.tilt, self.curvature, self.y_ref = base, tilt, curvature, y_ref
-        self.slit = ("tilt", tilt, curvature)
-
-    def __getattr__(self, name):
-        return getattr(self.base, name)
-
-    def wavelength(self, x, y=None, *, medium=None):
-        x = np.asarray(x, dtype=float)
-        if y is None:
-            return self.base.wavelength(x, medium=medium)
-        d = np.asarray(y, dtype=float) - self.y_ref
-        return self.base.wavelength(x + self.tilt * d + self.curvature * d ** 2, medium=medium)
 
 
 def as_file(wcs_result, shape) -> fits.HDUList:
@@ -286,13 +265,20 @@ def test_two_dimensional_without_slit_dependence(axis, distortion):
     np.testing.assert_array_equal(slit, rows + 5.0)
 
 
+def with_axis(solution, axis: int):
+    """The same solution for a frame whose dispersion runs along numpy axis ``axis``."""
+    return dataclasses.replace(solution, dispersion_axis=axis)
+
+
 @pytest.mark.parametrize("axis", [1, 0])
 @pytest.mark.parametrize("medium", ["air", "vacuum"])
-def test_tilted_lines_give_a_two_dimensional_table(axis, medium):
-    # Tilt 0.02 px/row and curvature 3e-4 px/row^2 (0.6 px over the slit): no 1-D header can
-    # describe it; both axes become -TAB over one (wavelength, slit) coordinate array.
-    solution = TiltedSolution(make_solution(SMALL, axis=axis))
-    shape = (48, 1024) if axis == 1 else (1024, 48)
+def test_tilted_lines_give_a_two_dimensional_table(tilted_arc, axis, medium):
+    # A real whole-slit solution (lines tilted by 2 degrees and curved by 0.6 px on the simulated
+    # frame, the slit-shift model measured by the calibration): no 1-D header can describe it;
+    # both axes become -TAB over one (wavelength, slit) coordinate array.
+    sim, solution, _, _ = tilted_arc
+    solution = with_axis(solution, axis)
+    shape = sim.data.shape if axis == 1 else sim.data.shape[::-1]
     result = solution_wcs(solution, shape, medium=medium)
     assert result.algorithm == "TAB2D"
     assert result.header[f"CTYPE{3 - result.spectral_axis}"] == "SLIT-TAB"
@@ -310,11 +296,16 @@ def test_tilted_lines_give_a_two_dimensional_table(axis, medium):
                     axis=axis) > 0.3
 
 
-def test_tilted_solution_on_a_spectrum_uses_one_dimension():
-    # A 1-D spectrum has no slit axis: the reference (y = None) wavelengths describe it.
-    solution = TiltedSolution(make_solution(SMALL))
-    result = solution_wcs(solution, (1024,))
-    assert result.algorithm == "GRA"
+def test_tilted_solution_on_a_spectrum_uses_one_dimension(tilted_arc):
+    # A 1-D spectrum has no slit axis: the reference-row (y = None) wavelengths describe it.
+    _, solution, _, _ = tilted_arc
+    n = solution.model.n_pixels
+    result = solution_wcs(solution, (n,))
+    assert result.algorithm in ("GRA", "TAB") and result.header["WCSAXES"] == 1
+    with as_file(result, (n,)) as hdul:
+        lam, slit = world_nm(hdul)
+    assert slit is None
+    assert error_px(lam, solution.wavelength(np.arange(n, dtype=float))) <= GRATING_TOLERANCE_PX
 
 
 # --------------------------------------------------------------------------------------------
