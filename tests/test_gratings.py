@@ -190,8 +190,10 @@ def test_groove_density_and_order_from_header_keywords():
     assert profile.grating.grooves_per_mm == 1200.0  # the profile itself is not changed
     with pytest.raises(HeaderError, match=r"^f\.fits: header keyword 'ORDER' \(order\) = 1\.5 is not a positive whole number$"):
         profile.for_header({"GROOVES": 600, "ORDER": 1.5}, path="f.fits")
-    with pytest.raises(HeaderError, match=r"^f\.fits: header keyword 'GROOVES' \(grooves_per_mm\) = 'fine' is not a positive number$"):
-        profile.for_header({"GROOVES": "fine"}, path="f.fits")
+    for bad in ("fine", -600, 0, True):
+        with pytest.raises(HeaderError, match=r"^f\.fits: header keyword 'GROOVES' \(grooves_per_mm\) = "
+                                              + repr(bad) + " is not a positive number$"):
+            profile.for_header({"GROOVES": bad}, path="f.fits")
 
 
 # ------------------------------------------------------------------------------------------------
