@@ -22,6 +22,13 @@ else:  # pragma: no cover - exercised only on Python 3.10
 
 from . import validation
 from .errors import HeaderError, ProfileError
+from .header_values import (
+    GRATING_NUMBER_TOLERANCE,
+    choose_grating,
+    header_binning,
+    header_count,
+    header_number,
+)
 from .instrument import (
     ApproximateSpec,
     CameraSpec,
@@ -29,13 +36,6 @@ from .instrument import (
     GratingEntry,
     GratingSpec,
     Priors,
-)
-from .header_values import (
-    GRATING_NUMBER_TOLERANCE,
-    choose_grating,
-    header_binning,
-    header_count,
-    header_number,
 )
 from .validation import (
     Choice,
