@@ -2,8 +2,9 @@
 
 A profile carries everything the physics and the frame reader need (grating, camera, detector),
 the prior uncertainty of each nominal value, and a mapping from the observatory's own FITS
-header keywords to the quantities the pipeline reads. The TOML layout is documented in the
-README ("Instrument profiles").
+header keywords to the quantities the pipeline reads. An instrument with several gratings lists
+them in ``[[gratings]]``; :meth:`InstrumentProfile.for_header` gives the one-grating profile of a
+frame. The TOML layout is documented in the README ("Instrument profiles").
 """
 from __future__ import annotations
 
@@ -21,6 +22,21 @@ else:  # pragma: no cover - exercised only on Python 3.10
 
 from . import validation
 from .errors import HeaderError, ProfileError
+from .header_values import (
+    GRATING_NUMBER_TOLERANCE,
+    choose_grating,
+    header_binning,
+    header_count,
+    header_number,
+)
+from .instrument import (
+    ApproximateSpec,
+    CameraSpec,
+    DetectorSpec,
+    GratingEntry,
+    GratingSpec,
+    Priors,
+)
 from .validation import (
     Choice,
     Integer,
@@ -29,6 +45,7 @@ from .validation import (
     Optional,
     Real,
     Sequence,
+    Table,
     Text,
     check_table,
 )
@@ -36,11 +53,6 @@ from .validation import (
 __all__ = [
     "MOUNTS",
     "HEADER_QUANTITIES",
-    "GratingSpec",
-    "CameraSpec",
-    "DetectorSpec",
-    "ApproximateSpec",
-    "Priors",
     "HeaderField",
     "InstrumentProfile",
     "PROFILE_RULES",
@@ -57,6 +69,9 @@ __all__ = [
 MOUNTS = ("reflection", "transmission", "grism", "approximate")
 
 #: Quantities the pipeline reads from a frame header, via the profile's ``[header]`` table.
+#: ``binning`` holds "N M"; ``binning_x`` and ``binning_y`` (both or neither, not with
+#: ``binning``) hold the binning along NAXIS1 and NAXIS2. ``grating`` chooses an entry of
+#: ``[[gratings]]``; ``grooves_per_mm`` and ``order`` replace the grating's values.
 HEADER_QUANTITIES = (
     "grating_angle",
     "lamps",
@@ -64,176 +79,25 @@ HEADER_QUANTITIES = (
     "exposure_time",
     "observation_time",
     "binning",
+    "binning_x",
+    "binning_y",
+    "grating",
+    "grooves_per_mm",
+    "order",
 )
 
 
 @dataclass(frozen=True)
-class GratingSpec:
-    """The disperser.
-
-    Attributes
-    ----------
-    mount : str
-        One of :data:`MOUNTS`.
-    grooves_per_mm : float
-        Groove density in lines per millimetre.
-    order : int
-        Diffraction order used (positive).
-    deviation_deg : float
-        Reflection: the full angle between collimator and camera axes. Transmission and grism:
-        the angle between the undeviated beam and the camera axis.
-    angle_zero_point_deg, angle_scale : float
-        The physical grating angle is ``angle_scale * header_value + angle_zero_point_deg``.
-        For a reflection grating the grating angle is the rotation of the grating normal from
-        the bisector of the collimator and camera axes; for a transmission grating the angle of
-        incidence; for a grism the tilt added to the prism apex angle.
-    prism_apex_deg, prism_index, prism_index_slope_per_nm, prism_reference_nm : float
-        Grism only: apex angle, refractive index at the reference wavelength and its slope.
-    blaze_nm : float or None
-        Blaze wavelength in the order used, if known.
-    """
-
-    mount: str
-    grooves_per_mm: float
-    order: int = 1
-    deviation_deg: float = 0.0
-    angle_zero_point_deg: float = 0.0
-    angle_scale: float = 1.0
-    prism_apex_deg: float = 0.0
-    prism_index: float = 1.0
-    prism_index_slope_per_nm: float = 0.0
-    prism_reference_nm: float = 600.0
-    blaze_nm: float | None = None
-
-
-@dataclass(frozen=True)
-class CameraSpec:
-    """Camera optics. ``focal_length_mm`` is the camera (exit) focal length."""
-
-    focal_length_mm: float
-    collimator_focal_length_mm: float | None = None
-
-
-@dataclass(frozen=True)
-class DetectorSpec:
-    """The detector and its read-out.
-
-    Every pixel quantity here is in UNBINNED detector pixels; a binned frame's regions are these
-    divided by its binning. Pixel regions use numpy's convention: 0-based, half-open
-    ``[start, stop)`` ranges as ``(row_start, row_stop, col_start, col_stop)``.
-
-    Attributes
-    ----------
-    pixel_size_um : float
-        Unbinned pixel pitch in micrometres.
-    shape : tuple of int
-        Unbinned raw frame shape ``(rows, columns)`` as read, including any overscan.
-    dispersion_axis : int
-        numpy axis of the image along which wavelength changes: 1 = along a row (columns
-        change, FITS NAXIS1), 0 = along a column (rows change, FITS NAXIS2).
-    wavelength_increases : int
-        +1 if wavelength increases with pixel index along the dispersion axis, -1 otherwise.
-    saturation_adu : float
-        Level (raw ADU, before bias subtraction) at or above which a pixel is saturated.
-    gain_e_per_adu, read_noise_e : float
-        Conversion gain and read noise in electrons.
-    overscan : tuple of int or None
-        Overscan region, or None when there is none.
-    trim : tuple of int or None
-        Region holding illuminated data, or None for the whole frame.
-    bias_adu : float
-        Constant bias level to subtract when there is no overscan.
-    axis_pixel : float or None
-        Unbinned 0-based pixel (along the dispersion axis of the raw frame) hit by the camera
-        axis; None means the centre of the detector.
-    tilt_deg : float
-        Nominal tilt of the detector in the dispersion plane (positive: detector normal turned
-        towards larger diffraction angles).
-    hdu : int or str or None
-        HDU holding the image; None means the first HDU with image data.
-    slit_rows : tuple of int or None
-        ``[start, stop)`` pixels along the spatial axis (the axis other than
-        ``dispersion_axis``) of the raw frame that the slit illuminates; None (the default)
-        means they are found from each frame.
-    """
-
-    pixel_size_um: float
-    shape: tuple[int, int]
-    dispersion_axis: int = 1
-    wavelength_increases: int = 1
-    saturation_adu: float = 65535.0
-    gain_e_per_adu: float = 1.0
-    read_noise_e: float = 5.0
-    overscan: tuple[int, int, int, int] | None = None
-    trim: tuple[int, int, int, int] | None = None
-    bias_adu: float = 0.0
-    axis_pixel: float | None = None
-    tilt_deg: float = 0.0
-    hdu: int | str | None = None
-    slit_rows: tuple[int, int] | None = None
-
-    @property
-    def dispersion_range(self) -> tuple[int, int]:
-        """Unbinned ``[start, stop)`` pixels of the illuminated region along the dispersion axis."""
-        if self.trim is None:
-            return (0, int(self.shape[self.dispersion_axis]))
-        return (self.trim[2], self.trim[3]) if self.dispersion_axis == 1 else (self.trim[0], self.trim[1])
-
-    @property
-    def n_dispersion(self) -> int:
-        """Number of unbinned illuminated pixels along the dispersion axis."""
-        start, stop = self.dispersion_range
-        return stop - start
-
-    @property
-    def nominal_axis_pixel(self) -> float:
-        """Unbinned raw-frame pixel hit by the camera axis (centre of the illuminated region
-        unless stated)."""
-        if self.axis_pixel is not None:
-            return float(self.axis_pixel)
-        start, stop = self.dispersion_range
-        return (start + stop - 1) / 2.0
-
-
-@dataclass(frozen=True)
-class ApproximateSpec:
-    """For spectrographs of unknown geometry: a rough central wavelength and dispersion.
-
-    Attributes
-    ----------
-    central_wavelength_nm : float
-        Wavelength near the detector centre.
-    dispersion_nm_per_px : float
-        Reciprocal linear dispersion near the centre (unbinned pixels).
-    central_wavelength_uncertainty, dispersion_uncertainty : float
-        Relative (1-sigma-like half-width) uncertainty of each, e.g. 0.15 for ±15 %.
-    """
-
-    central_wavelength_nm: float
-    dispersion_nm_per_px: float
-    central_wavelength_uncertainty: float = 0.15
-    dispersion_uncertainty: float = 0.15
-
-
-@dataclass(frozen=True)
-class Priors:
-    """Half-widths of the prior ranges around each nominal value.
-
-    The matcher searches the full range; the fit uses each as a Gaussian prior width.
-    """
-
-    grating_angle_deg: float = 1.0
-    focal_length_fraction: float = 0.03
-    axis_pixel_px: float = 20.0
-    tilt_deg: float = 2.0
-
-
-@dataclass(frozen=True)
 class HeaderField:
-    """Where one pipeline quantity lives in the observatory's FITS headers."""
+    """Where one pipeline quantity lives in the observatory's FITS headers.
+
+    ``tolerance`` (``grating`` only): largest difference between a numeric header value and a
+    grating's number for the value to name it.
+    """
 
     keyword: str
     default: Any = None
+    tolerance: float = GRATING_NUMBER_TOLERANCE
 
 
 @dataclass(frozen=True)
@@ -260,6 +124,12 @@ class InstrumentProfile:
         Range of wavelengths the instrument is sensitive to.
     source : Path or None
         File the profile was read from.
+    gratings : tuple of GratingEntry
+        The instrument's gratings when the profile lists several (``grating`` and ``priors``
+        then hold the first one's until :meth:`for_header` or :meth:`with_grating` chooses);
+        empty for a one-grating profile and for a profile whose grating has been chosen.
+    grating_name : str or None
+        Name of the chosen grating; None for a one-grating profile or before choosing.
     """
 
     name: str
@@ -273,6 +143,72 @@ class InstrumentProfile:
     approximate: ApproximateSpec | None = None
     sensitivity_nm: tuple[float, float] | None = None
     source: Path | None = None
+    gratings: tuple[GratingEntry, ...] = ()
+    grating_name: str | None = None
+
+    @property
+    def configuration_key(self) -> str:
+        """Identity of the grating setting, for grouping frames into configurations.
+
+        The chosen grating's name, followed by groove density and order when the header gives
+        them; ``""`` for a one-grating profile whose header gives neither.
+        """
+        parts = [self.grating_name] if self.grating_name else []
+        if "grooves_per_mm" in self.header or "order" in self.header:
+            parts.append(f"{self.grating.grooves_per_mm:g}/mm order {self.grating.order}")
+        return " ".join(parts)
+
+    def with_grating(self, name: str) -> InstrumentProfile:
+        """The one-grating profile of the grating called ``name`` (case and blanks ignored).
+
+        Raises
+        ------
+        ProfileError
+            When the profile lists no grating of that name (the message lists the known ones).
+        """
+        wanted = name.strip().lower()
+        for entry in self.gratings:
+            if entry.name.strip().lower() == wanted:
+                return dataclasses.replace(self, grating=entry.grating, priors=entry.priors,
+                                           gratings=(), grating_name=entry.name)
+        known = ", ".join(repr(e.name) for e in self.gratings) or "none listed"
+        msg = f"{self.source or self.name}: no grating {name!r} in the profile (known: {known})"
+        raise ProfileError(msg)
+
+    def for_header(self, header: Any, *, path: str | Path | None = None) -> InstrumentProfile:
+        """The one-grating profile of a frame.
+
+        The grating is the entry of ``[[gratings]]`` named by the ``grating`` header keyword;
+        groove density and order are then replaced by the ``grooves_per_mm`` and ``order``
+        keywords when the profile maps them. A one-grating profile mapping neither is returned
+        unchanged. Calling it again on its result gives the same profile.
+
+        Raises
+        ------
+        HeaderError
+            One line naming the file, the keyword and the value: a keyword missing without
+            default, a value naming no grating (the known ones listed), a groove density that is
+            not a positive number or an order that is not a positive whole number.
+        """
+        chosen = self
+        if self.gratings:
+            spec = self.header["grating"]
+            raw = self.header_value(header, "grating", path=path)
+            index = choose_grating([(e.name, e.number) for e in self.gratings], raw,
+                                   keyword=spec.keyword, tolerance=spec.tolerance, path=path)
+            chosen = self.with_grating(self.gratings[index].name)
+        changes: dict[str, Any] = {}
+        if "grooves_per_mm" in self.header:
+            changes["grooves_per_mm"] = header_number(
+                self.header_value(header, "grooves_per_mm", path=path),
+                keyword=self.header["grooves_per_mm"].keyword, what="grooves_per_mm", path=path)
+        if "order" in self.header:
+            changes["order"] = header_count(self.header_value(header, "order", path=path),
+                                            keyword=self.header["order"].keyword, what="order",
+                                            path=path)
+        if not changes:
+            return chosen
+        return dataclasses.replace(chosen, grating=dataclasses.replace(chosen.grating, **changes))
 
     def header_value(self, header: Any, quantity: str, *, path: str | Path | None = None) -> Any:
         """Read one pipeline quantity from a FITS header through the profile's mapping.
@@ -320,18 +256,18 @@ class InstrumentProfile:
     def binning_from_header(self, header: Any, *, path: str | Path | None = None) -> tuple[int, int]:
         """Binning ``(along rows axis 0, along columns axis 1)`` from the header, default 1×1.
 
-        The header value is read as FITS-style ``"<binning along NAXIS1> <binning along NAXIS2>"``.
+        Read from the ``binning`` keyword as FITS-style ``"<along NAXIS1> <along NAXIS2>"``, or
+        from the ``binning_x`` (along NAXIS1) and ``binning_y`` (along NAXIS2) keywords.
         """
-        if "binning" not in self.header:
+        if "binning" in self.header:
+            b1, b2 = header_binning(self.header_value(header, "binning", path=path),
+                                    keyword=self.header["binning"].keyword, path=path)
+        elif "binning_x" in self.header:
+            b1, b2 = (header_count(self.header_value(header, q, path=path),
+                                   keyword=self.header[q].keyword, what=q, path=path)
+                      for q in ("binning_x", "binning_y"))
+        else:
             return (1, 1)
-        raw = self.header_value(header, "binning", path=path)
-        parts = str(raw).replace("x", " ").replace(",", " ").split()
-        try:
-            b1, b2 = (int(p) for p in parts) if len(parts) == 2 else (int(parts[0]),) * 2
-        except (ValueError, IndexError):
-            where = f"{path}: " if path is not None else ""
-            msg = f"{where}binning {raw!r} is not of the form 'N M'"
-            raise HeaderError(msg) from None
         return (b2, b1)
 
     def lamps_from_header(self, header: Any, *, path: str | Path | None = None) -> tuple[str, ...]:
@@ -398,6 +334,12 @@ def _hdu(value: Any) -> int | str:
 
 _POSITIVE = Real(low=0, open_low=True)
 _ANGLE = Real(low=-180, high=180)
+#: The keys of a grating an entry of ``[[gratings]]`` may give (all but the mount).
+_GRATING = {"grooves_per_mm": Real(low=0), "order": Integer(low=1), "deviation_deg": _ANGLE,
+            "angle_zero_point_deg": Real(low=-360, high=360), "angle_scale": Real(nonzero=True),
+            "prism_apex_deg": Real(low=0, high=90), "prism_index": Real(low=1, high=5),
+            "prism_index_slope_per_nm": Real(), "prism_reference_nm": _POSITIVE,
+            "blaze_nm": _POSITIVE}
 
 #: The rule of every profile key, by section.
 PROFILE_RULES: dict[str, dict[str, validation.Rule]] = {
@@ -405,11 +347,11 @@ PROFILE_RULES: dict[str, dict[str, validation.Rule]] = {
                    "lamps": Lamps(),
                    "sensitivity_nm": Sequence(_POSITIVE, length=2, increasing=True,
                                               label="[shortest, longest] in nm")},
-    "grating": {"mount": Choice(MOUNTS), "grooves_per_mm": Real(low=0), "order": Integer(low=1),
-                "deviation_deg": _ANGLE, "angle_zero_point_deg": Real(low=-360, high=360),
-                "angle_scale": Real(nonzero=True), "prism_apex_deg": Real(low=0, high=90),
-                "prism_index": Real(low=1, high=5), "prism_index_slope_per_nm": Real(),
-                "prism_reference_nm": _POSITIVE, "blaze_nm": _POSITIVE},
+    "grating": {"mount": Choice(MOUNTS), **_GRATING},
+    # one table per grating of an instrument with several: the [grating] keys that differ
+    # from the instrument's, a name, the number a header keyword may give for it, own priors
+    "gratings": {**_GRATING, "grooves_per_mm": _POSITIVE, "name": Text(max_length=70),
+                 "number": Real(), "priors": Table()},
     "camera": {"focal_length_mm": _POSITIVE, "collimator_focal_length_mm": _POSITIVE},
     "detector": {"pixel_size_um": _POSITIVE,
                  "shape": Sequence(Integer(low=1), length=2, label="[rows, columns]"),
@@ -446,6 +388,41 @@ def _section(data: dict[str, Any], name: str, cls: type, src: str) -> Any:
     return cls(**values)
 
 
+def _gratings(data: dict[str, Any], priors: Priors, src: str) -> tuple[GratingEntry, ...]:
+    """The ``[[gratings]]`` list, each entry folded into ``[grating]`` and ``[priors]``; the
+    ``[grating]`` table is left in ``data`` when there is no list."""
+    if "gratings" not in data:
+        return ()
+    tables = data.pop("gratings")
+    if not isinstance(tables, list) or not tables:
+        msg = (f"{src}: [[gratings]] must be a list of tables, one per grating, got "
+               f"{validation.describe(tables)}")
+        raise ProfileError(msg)
+    base = check_table(data.pop("grating"), PROFILE_RULES["grating"], where=f"{src}: [grating]",
+                       error=ProfileError, required=("mount",))
+    if base["mount"] == "approximate":
+        msg = f"{src}: mount 'approximate' cannot list [[gratings]] (no geometry to choose from)"
+        raise ProfileError(msg)
+    shared = sorted({"grooves_per_mm", "order", "blaze_nm"} & set(base))
+    if shared:
+        msg = f"{src}: [grating] {', '.join(shared)} belong to each grating in [[gratings]]"
+        raise ProfileError(msg)
+    entries: list[GratingEntry] = []
+    for i, table in enumerate(tables):
+        own = check_table(table, PROFILE_RULES["gratings"], where=f"{src}: [[gratings]] item {i}",
+                          error=ProfileError, required=("name", "grooves_per_mm"))
+        name = own.pop("name")
+        if any(e.name.strip().lower() == name.strip().lower() for e in entries):
+            msg = f"{src}: [[gratings]] name {name!r} is given twice"
+            raise ProfileError(msg)
+        own_priors = check_table(own.pop("priors", {}), PROFILE_RULES["priors"],
+                                 where=f"{src}: [[gratings]] {name!r} priors", error=ProfileError)
+        entries.append(GratingEntry(name=name, number=own.pop("number", own["grooves_per_mm"]),
+                                    grating=GratingSpec(**{**base, **own}),
+                                    priors=dataclasses.replace(priors, **own_priors)))
+    return tuple(entries)
+
+
 def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>") -> InstrumentProfile:
     """Build an :class:`InstrumentProfile` from a parsed TOML document.
 
@@ -469,7 +446,12 @@ def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>")
         if required not in data:
             msg = f"{src}: missing [{required}] section"
             raise ProfileError(msg)
-    grating = _section(data, "grating", GratingSpec, src)
+    priors = _section(data, "priors", Priors, src) if "priors" in data else Priors()
+    gratings = _gratings(data, priors, src)
+    if gratings:
+        grating, priors = gratings[0].grating, gratings[0].priors
+    else:
+        grating = _section(data, "grating", GratingSpec, src)
     detector = _section(data, "detector", DetectorSpec, src)
     _check_detector(detector, src)
 
@@ -492,10 +474,13 @@ def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>")
         camera = _section(data, "camera", CameraSpec, src)
         data.pop("approximate", None)
 
-    priors = _section(data, "priors", Priors, src) if "priors" in data else Priors()
     header = _header_fields(data.pop("header", {}), src)
     if grating.mount != "approximate" and "grating_angle" not in header:
         msg = f"{src}: [header] must map 'grating_angle' (give a default for a fixed grating)"
+        raise ProfileError(msg)
+    if bool(gratings) != ("grating" in header):
+        msg = (f"{src}: [header] must map 'grating' to choose among [[gratings]]" if gratings
+               else f"{src}: [header] 'grating' chooses among [[gratings]], but none are listed")
         raise ProfileError(msg)
     return InstrumentProfile(
         name=inst.get("name", Path(src).stem),
@@ -509,6 +494,7 @@ def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>")
         approximate=approximate,
         sensitivity_nm=inst.get("sensitivity_nm"),
         source=Path(src) if src != "<profile>" else None,
+        gratings=gratings,
     )
 
 
@@ -535,10 +521,17 @@ def _header_fields(table: Any, src: str) -> dict[str, HeaderField]:
     for quantity, spec in table.items():
         if isinstance(spec, str):
             spec = {"keyword": spec}
-        values = check_table(spec, {"keyword": Text(max_length=70), "default": Optional(_header_default)},
-                             where=f"{src}: [header.{quantity}]", error=ProfileError,
+        rules = {"keyword": Text(max_length=70), "default": Optional(_header_default)}
+        if quantity == "grating":
+            rules["tolerance"] = Real(low=0)
+        values = check_table(spec, rules, where=f"{src}: [header.{quantity}]", error=ProfileError,
                              required=("keyword",))
         header[quantity] = HeaderField(**values)
+    axes = {"binning_x", "binning_y"} & set(header)
+    if axes and ("binning" in header or len(axes) == 1):
+        msg = (f"{src}: [header] binning comes from 'binning' (\"N M\") or from both "
+               f"'binning_x' and 'binning_y', got {sorted({'binning', *axes} & set(header))}")
+        raise ProfileError(msg)
     return header
 
 
