@@ -11,12 +11,15 @@ fit kept (``identification == "used"``); no further clipping is done here.
 
 An arc that disagrees with the shared optics is left out (its single-arc solution stands). The
 test is the nested-model F-test: with its optics tied to the others the arc's chi-square rises
-by Δχ² over its own fit of the same lines, with ``q`` (the number of shared parameters) fewer
-free parameters. Under the hypothesis that the arc shares the optics, ``F = (Δχ²/q) / s²``, with
-``s²`` the arc's own reduced chi-square (at least 1: the stated uncertainties are believed unless
-the residuals exceed them), follows an F(q, ν) distribution (ν the arc's own degrees of freedom).
-The statistic is conservative: the shared parameters are themselves uncertain, which lowers
-Δχ² below χ²(q). An arc is left out when its tail probability is below
+by Δχ² over its own fit of the same lines. Its parameters are partly set by their priors (grating
+angle and camera-axis pixel move the lines almost alike) and, in the joint fit, the arc still
+helps set the shared ones, so the parameters counted are *effective* ones, the arc's share of
+the trace of the hat matrix (common practice for regularised least squares): ``p1`` in its own
+fit, ``pJ`` in the joint one, ``q = p1 - pJ`` tied, ``ν = n_lines - p1`` left. Under the
+hypothesis that the arc shares the optics, ``F = (Δχ²/q) / s²``, with ``s²`` the arc's own
+reduced chi-square (at least 1: the stated uncertainties are believed unless the residuals
+exceed them), follows an F(q, ν) distribution. An arc is left out when its tail probability is
+below
 :data:`FALSE_ALARM` divided by the number of arcs in the joint set (Bonferroni: one false alarm
 in a hundred configurations of agreeing arcs); the worst arc goes first, then the rest is refitted.
 
@@ -76,11 +79,14 @@ class ArcFit:
         Lines used.
     chi2_joint, chi2_single : float
         Chi-square of its lines in the joint fit (NaN when left out) and in its own fit.
-    dof_single : int
-        Its own fit's degrees of freedom (lines minus parameters).
+    dof_single : float
+        Its own fit's degrees of freedom (lines minus effective parameters).
     shift_px, shift_sigma_px : float
         Pixel where the arc puts :attr:`JointFit.reference_wavelength_nm`, minus the detector
         centre, and its 1-sigma uncertainty (NaN when left out).
+    f_statistic, p_value : float
+        The agreement test of the module docstring in the final joint fit (NaN when left out;
+        the numbers that left it out are in its :class:`LeftOut`).
     """
 
     index: int
@@ -94,9 +100,11 @@ class ArcFit:
     n_lines: int
     chi2_joint: float
     chi2_single: float
-    dof_single: int
+    dof_single: float
     shift_px: float
     shift_sigma_px: float
+    f_statistic: float
+    p_value: float
 
 
 @dataclass(frozen=True)
@@ -104,7 +112,8 @@ class LeftOut:
     """Why an arc was left out of the joint set.
 
     ``f_statistic`` and ``p_value`` are NaN for an arc that could not enter at all (no model,
-    too few lines); ``threshold`` is the tail probability below which it was left out.
+    too few lines), ``n_tied`` the effective number of parameters its lines lost to the shared
+    ones; ``threshold`` is the tail probability below which it was left out.
     """
 
     index: int
@@ -112,6 +121,7 @@ class LeftOut:
     reason: str
     f_statistic: float = math.nan
     p_value: float = math.nan
+    n_tied: float = math.nan
     threshold: float = math.nan
 
 
@@ -214,6 +224,7 @@ class _Fit:
     covariance: np.ndarray     # of theta, scaled
     chi2_arc: np.ndarray
     dof: int
+    n_effective: np.ndarray    # per arc: its lines' share of the hat-matrix trace
 
     @property
     def chi2(self) -> float:
@@ -277,9 +288,12 @@ class _Problem:
         dof = sum(sizes) - theta.size
         jac = result.jac
         scaled_cov = np.linalg.pinv(jac.T @ jac)
+        rows = jac[:data.size]
+        leverage = np.einsum("ij,jk,ik->i", rows, scaled_cov, rows)
+        n_effective = np.array([part.sum() for part in np.split(leverage, np.cumsum(sizes)[:-1])])
         cov = scaled_cov * np.outer(self.width, self.width)
         cov *= max(chi2_arc.sum() / max(dof, 1), 1.0)
-        return _Fit(members, tuple(self.models(theta)), theta, cov, chi2_arc, dof)
+        return _Fit(members, tuple(self.models(theta)), theta, cov, chi2_arc, dof, n_effective)
 
     def arc_covariance(self, fit: _Fit, i: int) -> tuple[tuple[str, ...], np.ndarray]:
         """Names and covariance of arc ``i``'s model parameters in ``fit``."""
@@ -383,34 +397,37 @@ def joint_fit(solutions: Sequence[Solution], box: PriorBox, *,
         active.append(i)
         alone = _Problem([arc], box, degree)
         singles[i] = (alone, alone.fit((i,)))
-    joint = None
+    joint, tails = None, {}
     while len(active) >= 2:
         problem = _Problem([arcs[i] for i in active], box, degree)
         joint = (problem, problem.fit(tuple(active)))
-        tails = []
+        tails = {}
         for k, i in enumerate(active):
             single = singles[i][1]
-            variance = max(single.chi2 / max(single.dof, 1), 1.0)
-            f_stat = max(joint[1].chi2_arc[k] - single.chi2, 0.0) / problem.n_shared / variance
-            tails.append((stats.f.sf(f_stat, problem.n_shared, max(single.dof, 1)), f_stat, i))
-        p_value, f_stat, worst = min(tails)
+            nu = arcs[i].x.size - single.n_effective[0]
+            q = max(single.n_effective[0] - joint[1].n_effective[k], 1e-3)
+            variance = max(single.chi2 / nu, 1.0)
+            f_stat = max(joint[1].chi2_arc[k] - single.chi2, 0.0) / q / variance
+            tails[i] = (float(stats.f.sf(f_stat, q, nu)), float(f_stat), float(q))
+        worst = min(tails, key=tails.get)
+        p_value, f_stat, q = tails[worst]
         threshold = FALSE_ALARM / len(active)
         if p_value >= threshold:
             break
         left.append(LeftOut(worst, arcs[worst].frame,
                             f"its lines disagree with the optics of the other arcs: F = "
-                            f"{f_stat:.3g} for {problem.n_shared} shared parameters, tail "
+                            f"{f_stat:.3g} for {q:.2g} parameters tied, tail "
                             f"probability {p_value:.2g} < {threshold:.2g}",
-                            float(f_stat), float(p_value), threshold))
+                            f_stat, p_value, q, threshold))
         active.remove(worst)
         joint = None
     if joint is None:
         left += [LeftOut(i, arcs[i].frame, "fewer than two arcs left to share optics with")
                  for i in active]
-    return _result(arcs, degree, joint, singles, left, times, temperatures)
+    return _result(arcs, degree, joint, singles, tails, left, times, temperatures)
 
 
-def _result(arcs, degree, joint, singles, left, times, temperatures) -> JointFit:
+def _result(arcs, degree, joint, singles, tails, left, times, temperatures) -> JointFit:
     shared_names = (*_SHARED, *[f"distortion_{k}" for k in range(3, degree + 1)])
     n_shared = len(shared_names)
     members = joint[1].members if joint else ()
@@ -429,8 +446,9 @@ def _result(arcs, degree, joint, singles, left, times, temperatures) -> JointFit
             single = singles[i][1]
             out[i] = ArcFit(i, arcs[i].frame, True, model, names, values,
                             np.sqrt(np.clip(np.diag(cov), 0, None)), cov, int(arcs[i].x.size),
-                            float(fit.chi2_arc[k]), single.chi2, single.dof, float(shifts[k]),
-                            float(np.sqrt(max(shift_cov[k, k], 0.0))))
+                            float(fit.chi2_arc[k]), single.chi2,
+                            float(arcs[i].x.size - single.n_effective[0]), float(shifts[k]),
+                            float(np.sqrt(max(shift_cov[k, k], 0.0))), tails[i][1], tails[i][0])
     for i, arc in enumerate(arcs):
         if i in out:
             continue
@@ -438,15 +456,17 @@ def _result(arcs, degree, joint, singles, left, times, temperatures) -> JointFit
             problem, single = singles[i]
             names, cov = problem.arc_covariance(single, 0)
             values = np.array([single.models[0].parameter(n) for n in names])
-            errors, chi2, dof = np.sqrt(np.clip(np.diag(cov), 0, None)), single.chi2, single.dof
+            errors, chi2 = np.sqrt(np.clip(np.diag(cov), 0, None)), single.chi2
+            dof = float(arc.x.size - single.n_effective[0])
         else:
             names = ("grating_angle_deg", "focal_length_mm", "axis_pixel", "tilt_deg",
                      *[f"distortion_{k}" for k in range(3, degree + 1)])
             values = errors = np.full(len(names), np.nan)
             cov = np.full((len(names), len(names)), np.nan)
-            chi2, dof = math.nan, 0
+            chi2, dof = math.nan, math.nan
         out[i] = ArcFit(i, arc.frame, False, arc.model, names, values, errors, cov,
-                        int(arc.x.size), math.nan, chi2, dof, math.nan, math.nan)
+                        int(arc.x.size), math.nan, chi2, dof, math.nan, math.nan, math.nan,
+                        math.nan)
     if joint:
         fit = joint[1]
         shared_values = fit.theta[:n_shared].copy()
