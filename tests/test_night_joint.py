@@ -165,6 +165,15 @@ def test_inputs_of_another_configuration_or_wrong_length_are_refused():
         joint_fit(sols, BOX, times=[60000.0])
 
 
+def test_no_drift_line_without_two_distinct_finite_values():
+    _, sols = drifting_night(7, [0.0, 1.0, 2.0])
+    assert joint_fit(sols, BOX).drift_time is None
+    assert joint_fit(sols, BOX, times=[60000.0, np.nan, np.nan]).drift_time is None
+    assert joint_fit(sols, BOX, temperatures=[5.0, 5.0, 5.0]).drift_temperature is None
+    line = joint_fit(sols, BOX, times=[60000.0, np.nan, 60000.25]).drift_time
+    assert line.dof == 0 and line.origin == 60000.0
+
+
 def test_calibrated_arcs_of_a_synthetic_night(tmp_path):
     night = make_night(tmp_path, seed=7, n_arcs=3, n_science=0, n_bias=0, n_flats=0,
                        bad_files=False)

@@ -169,7 +169,8 @@ class JointFit:
     reference_wavelength_nm : float
         The wavelength whose position measures each arc's shift.
     drift_time, drift_temperature : DriftLine or None
-        Given times (temperatures) of at least two joint arcs.
+        When times (temperatures) are given, finite and distinct for at least two joint arcs;
+        arcs without a finite value are left out of the line.
     """
 
     arcs: tuple[ArcFit, ...]
@@ -239,7 +240,7 @@ class _Problem:
     """
 
     def __init__(self, arcs: Sequence[_Lines], box: PriorBox, degree: int):
-        self.arcs, self.box, self.degree = arcs, box, degree
+        self.arcs, self.degree = arcs, degree
         self.n_dist = max(degree - 2, 0)
         self.n_shared = len(_SHARED) + self.n_dist
         priors = box.as_dict()
@@ -316,6 +317,22 @@ class _Problem:
             grad[:, j] = [(a.pixel(wavelength_nm) - b.pixel(wavelength_nm)) / (2 * step)
                           for a, b in zip(self.models(up), self.models(down))]
         return x0, grad @ fit.covariance @ grad.T
+
+
+def _drift(values, members, shifts, shift_cov, against: str) -> DriftLine | None:
+    """The drift line of the joint arcs whose ``values`` are finite (None unless at least two
+    distinct ones): time in hours from the first MJD, temperature about its mean."""
+    if values is None:
+        return None
+    u = np.array([values[i] for i in members], float)
+    ok = np.isfinite(u)
+    if np.count_nonzero(ok) < 2 or np.ptp(u[ok]) == 0:
+        return None
+    u, shifts, shift_cov = u[ok], shifts[ok], shift_cov[np.ix_(ok, ok)]
+    if against == "time":
+        return _straight_line((u - u.min()) * _HOURS_PER_DAY, shifts, shift_cov, against,
+                              float(u.min()))
+    return _straight_line(u - u.mean(), shifts, shift_cov, against, float(u.mean()))
 
 
 def _straight_line(u: np.ndarray, y: np.ndarray, cov: np.ndarray, against: str,
@@ -477,19 +494,12 @@ def _result(arcs, degree, joint, singles, tails, left, times, temperatures) -> J
     else:
         shared_values = shared_errors = single_errors = np.full(n_shared, np.nan)
         chi2, dof = math.nan, 0
-    drift_time = drift_temperature = None
-    if len(members) >= 2 and times is not None:
-        t = np.array([times[i] for i in members], float)
-        drift_time = _straight_line((t - t.min()) * _HOURS_PER_DAY, shifts, shift_cov, "time",
-                                    float(t.min()))
-    if len(members) >= 2 and temperatures is not None:
-        temp = np.array([temperatures[i] for i in members], float)
-        drift_temperature = _straight_line(temp - temp.mean(), shifts, shift_cov, "temperature",
-                                           float(temp.mean()))
     return JointFit(arcs=tuple(out[i] for i in range(len(arcs))), shared_names=shared_names,
                     shared_values=shared_values, shared_errors=shared_errors,
                     single_errors=single_errors, chi2=float(chi2), dof=int(dof),
                     reduced_chi2=float(chi2 / dof) if dof > 0 else math.nan,
                     distortion_degree=degree, left_out=tuple(left),
-                    reference_wavelength_nm=reference, drift_time=drift_time,
-                    drift_temperature=drift_temperature)
+                    reference_wavelength_nm=reference,
+                    drift_time=_drift(times, members, shifts, shift_cov, "time"),
+                    drift_temperature=_drift(temperatures, members, shifts, shift_cov,
+                                             "temperature"))
