@@ -99,7 +99,7 @@ def _handler(command: str, kind: str) -> Callable:
 
 def _parser(argv: list[str]) -> argparse.ArgumentParser:
     """The parser, with the options of the subcommand named in ``argv`` (if any)."""
-    from .. import __version__
+    from .._version import __version__
 
     parser = _Parser(
         prog="wavecal",

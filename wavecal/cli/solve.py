@@ -135,7 +135,7 @@ def run_solve_command(args: argparse.Namespace) -> ExitCode:
 
 def run_demo_command(args: argparse.Namespace) -> ExitCode:
     """Run ``wavecal demo``: solve the bundled demo frames."""
-    from .. import __version__
+    from .._version import __version__
     from ..demo import demo_cases
     from ..profile import load_profile
 
