@@ -53,7 +53,7 @@ def test_evaluation_and_inverse(solved):
 def test_lines_table_has_residuals_in_three_units(solved):
     solution, _ = solved
     used = solution.lines[solution.lines["identification"] == "used"]
-    assert len(used) == solution.statistics["n_used"]
+    assert len(used) == solution.statistics.n_used
     c_kms = 299792.458  # speed of light, exact by SI definition
     assert np.allclose(used["residual_kms"], used["residual_nm"] / used["line_wavelength"] * c_kms)
     # the RMS is weighted by each line's total uncertainty in the fit (column sigma_px)
