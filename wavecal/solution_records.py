@@ -2,10 +2,10 @@
 
 :class:`FitStatistics` holds the figures of merit of a fit and its identification;
 :class:`PhysicalParameters` the fitted physical parameters (:class:`ParameterEstimate` each)
-with their covariance and correlation. Both are frozen; each gives its entries of a solution file
-(:meth:`FitStatistics.to_dict`, :meth:`PhysicalParameters.to_dict`; plain Python and numpy
-values, made JSON-safe by the solution) and reads them back, including the keys of files written by earlier versions (``redchi``, now
-``reduced_chi2``).
+with their covariance and correlation. Both are frozen. Each gives its entries of a solution
+file (:meth:`FitStatistics.to_dict`, :meth:`PhysicalParameters.to_dict`: plain Python and
+numpy values, made JSON-safe by the solution) and reads them back, including the keys of files
+written by earlier versions (``redchi``, now ``reduced_chi2``).
 """
 from __future__ import annotations
 
