@@ -90,8 +90,8 @@ def test_five_listed_lines_are_still_solved_and_judged_on_their_significance(see
     assert solution.status == "suspect"
     assert solution.reasons == (
         "identification only marginally better than chance (chance probability "
-        f"10^{solution.statistics['log10_chance']:.1f} after "
-        f"10^{solution.statistics['log10_trials']:.1f} trials)",)
+        f"10^{solution.statistics.log10_chance:.1f} after "
+        f"10^{solution.statistics.log10_trials:.1f} trials)",)
     assert _max_error_px(solution, sim.truth) < 0.25
 
 
@@ -108,6 +108,6 @@ def test_hydrogen_lines_name_peaks_but_are_not_evidence():
     assert (extra["element"] == "H").all()
     assert np.min(np.abs(extra["x"] - h_alpha)) < 0.5
     used = solution.lines[solution.lines["identification"] == "used"]
-    assert solution.statistics["n_identified"] == len(solution.lines[
+    assert solution.statistics.n_identified == len(solution.lines[
         solution.lines["identification"].isin(["used", "rejected", "unconfirmed"])])
     assert not used["element"].str.split("+").apply(lambda names: "H" in names).any()

@@ -84,7 +84,7 @@ def test_fit_recovers_truth_to_a_small_fraction_of_a_pixel(wide_profile):
     error_px = fit.model.pixel(truth.wavelength(grid)) - grid
     assert np.max(np.abs(error_px)) < 0.05
     assert fit.distortion_degree >= 3  # a 0.4 px cubic term must be detected
-    assert 0.3 < fit.redchi < 3.0
+    assert 0.3 < fit.reduced_chi2 < 3.0
 
 
 def test_wrong_lamp_gives_no_significant_identification(wide_profile):

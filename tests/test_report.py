@@ -54,8 +54,8 @@ def test_frame_report_files_and_json_twin(calibration, tmp_path, monkeypatch):
     assert text.count("data:image/png;base64,") == len(rep.pngs)
     facts = json.loads(rep.json.read_text())
     assert facts["status"] == sol.status
-    assert facts["n_used"] == sol.statistics["n_used"]
-    assert [p["name"] for p in facts["parameters"]] == [p["name"] for p in sol.parameters]
+    assert facts["n_used"] == sol.statistics.n_used
+    assert [p["name"] for p in facts["parameters"]] == list(sol.parameters.names)
     assert facts["identification_counts"]["used"] == int(
         (sol.lines["identification"] == "used").sum())
     # the spectrum figure labels the used lines with wavelength and element ("546.07 Hg")

@@ -326,7 +326,7 @@ def test_json_round_trip_of_a_whole_slit_solution(tilted, tmp_path):
     _, solution = tilted
     path = solution.write(tmp_path / "slit.solution.json")
     data = json.loads(path.read_text())
-    assert data["schema_version"] == SCHEMA_VERSION == 2
+    assert data["schema_version"] == SCHEMA_VERSION == 3
     assert data["slit"]["degree_y"] == solution.slit.degree_y
     back = load_solution(path)
     x = np.linspace(-100, 4200, 41)[np.newaxis, :]

@@ -1,5 +1,7 @@
 """The Solution object and its JSON file."""
 import json
+import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -9,6 +11,11 @@ from wavecal.errors import SolutionFileError
 from wavecal.frames import frame_from_array
 from wavecal.profile import load_profile
 from wavecal.solution import SCHEMA_VERSION, load_solution
+
+#: A solution file as wavecal wrote it before the statistics key ``redchi`` became
+#: ``reduced_chi2`` (schema version 2, with a slit block; written at commit 6de3d93 for a
+#: simulated Hg+Ar arc of ``tho_longslit``, seed 4, lines tilted by 1.5 degrees and curved by 1 px).
+V2_FILE = Path(__file__).parent / "data" / "solution_v2.json"
 
 
 @pytest.fixture(scope="module")
@@ -35,6 +42,57 @@ def test_json_round_trip_reproduces_everything(solved, tmp_path):
     np.testing.assert_array_equal(back.wavelength_uncertainty(x), solution.wavelength_uncertainty(x))
     data = json.loads(path.read_text())
     assert data["schema_version"] == SCHEMA_VERSION and data["wavelength_unit"] == "nm"
+    assert "reduced_chi2" in data["statistics"] and "redchi" not in data["statistics"]
+    assert back.statistics.reduced_chi2 == solution.statistics.reduced_chi2 > 0
+    assert back.parameters.names == solution.parameters.names
+    np.testing.assert_array_equal(back.parameters.covariance, solution.parameters.covariance)
+    # written again, the file is the same, byte for byte
+    assert back.write(tmp_path / "again.json").read_text() == path.read_text()
+
+
+def test_schema_2_file_still_reads():
+    data = json.loads(V2_FILE.read_text())
+    assert data["schema_version"] == 2 and "reduced_chi2" not in data["statistics"]
+    solution = load_solution(V2_FILE)
+    assert solution.status == data["status"] and solution.slit is not None
+    stats = solution.statistics
+    assert stats.reduced_chi2 == data["statistics"]["redchi"]
+    assert (stats.n_used, stats.n_peaks, stats.rms_px) == (
+        data["statistics"]["n_used"], data["statistics"]["n_peaks"], data["statistics"]["rms_px"])
+    assert [p.value for p in solution.parameters.estimates] == [
+        p["value"] for p in data["parameters"]]
+    np.testing.assert_array_equal(solution.parameters.covariance, np.array(data["covariance"]))
+    # the wavelengths and uncertainty the writing version computed are reproduced
+    used = solution.lines[solution.lines["identification"] == "used"]
+    np.testing.assert_allclose(solution.wavelength(used["x"].to_numpy()),
+                               used["wavelength_fit"].to_numpy(), rtol=1e-12)
+    assert np.all(solution.wavelength_uncertainty(used["x"].to_numpy()) > 0)
+
+
+def test_schema_2_failed_solution_still_reads(tmp_path):
+    """A failed solution as the writing version of schema 2 made it: two statistics only."""
+    data = {"schema": "wavecal-solution", "schema_version": 2, "software_version": "0.1",
+            "status": "failed", "reasons": ["too few lines identified"], "medium": "air",
+            "wavelength_unit": "nm", "pixel_convention": "0-based", "dispersion_axis": 1,
+            "frame": "arc.fits", "profile": "tho_longslit", "lamps": ["Hg"],
+            "covered_range_px": [None, None], "model": None, "slit": None, "parameters": [],
+            "correlation": {"names": [], "matrix": []}, "covariance": None,
+            "statistics": {"n_peaks": 2, "n_used": 0},
+            "lines": {col: [None, None] for col in (
+                "x", "x_err", "fwhm", "flux", "snr", "line_wavelength", "line_intensity",
+                "wavelength_fit", "residual_px", "residual_nm", "residual_kms", "sigma_px")}
+            | {"flags": [0, 0], "identification": ["unidentified"] * 2, "element": ["", ""],
+               "line_verified": [False, False]}}
+    path = tmp_path / "failed_v2.json"
+    path.write_text(json.dumps(data))
+    solution = load_solution(path)
+    assert solution.status == "failed" and solution.model is None
+    assert (solution.statistics.n_peaks, solution.statistics.n_used) == (2, 0)
+    assert math.isnan(solution.statistics.reduced_chi2) and solution.parameters.names == ()
+    data["statistics"]["n_used"] = 2.5
+    path.write_text(json.dumps(data))
+    with pytest.raises(SolutionFileError, match="failed_v2.json: .*n_used"):
+        load_solution(path)
 
 
 def test_evaluation_and_inverse(solved):
@@ -54,7 +112,7 @@ def test_evaluation_and_inverse(solved):
 def test_lines_table_has_residuals_in_three_units(solved):
     solution, _ = solved
     used = solution.lines[solution.lines["identification"] == "used"]
-    assert len(used) == solution.statistics["n_used"]
+    assert len(used) == solution.statistics.n_used
     c_kms = 299792.458  # speed of light, exact by SI definition
     assert np.allclose(used["residual_kms"], used["residual_nm"] / used["line_wavelength"] * c_kms)
     # the RMS is weighted by each line's total uncertainty in the fit (column sigma_px)

@@ -52,8 +52,8 @@ class FitResult:
         Observed minus model position for every input pair (pixels).
     normalized_residual : ndarray
         ``residual_px`` divided by its total uncertainty.
-    chisqr, redchi, bic : float
-        Of the data part, over kept pairs (priors excluded from ``redchi``).
+    chisqr, reduced_chi2, bic : float
+        Of the data part, over kept pairs (priors excluded from ``reduced_chi2``).
     distortion_degree : int
         Highest Legendre degree of the distortion term, 0 for none.
     success : bool
@@ -64,7 +64,7 @@ class FitResult:
     scatter_px : float
         Scatter added in quadrature to every line's uncertainty because the residuals exceeded
         what the stated uncertainties explain (:func:`excess_scatter`); 0 when they did not.
-        ``normalized_residual`` and ``redchi`` include it.
+        ``normalized_residual`` and ``reduced_chi2`` include it.
     x, sigma_px : ndarray
         Position of every input pair and its total uncertainty in the fit (pixels: centre,
         list wavelength and ``scatter_px`` combined).
@@ -82,7 +82,7 @@ class FitResult:
     residual_px: np.ndarray
     normalized_residual: np.ndarray
     chisqr: float
-    redchi: float
+    reduced_chi2: float
     bic: float
     distortion_degree: int
     success: bool
@@ -144,11 +144,6 @@ class FitResult:
         delta = (rows @ cov) * factor[:, None]  # (pairs, parameters)
         shift = np.abs(delta @ jac_grid).max(axis=1)
         return np.where(self.used, shift, np.nan)
-
-    def parameter_table(self) -> list[dict]:
-        """One dict per varied parameter: name, value, error."""
-        return [{"name": n, "value": float(v), "error": float(e)}
-                for n, v, e in zip(self.names, self.values, self.errors)]
 
 
 def _model_from(params: lmfit.Parameters, base: GratingModel, degree: int) -> GratingModel:
@@ -315,9 +310,9 @@ def _summarise(result, model, x, lam, sigma_px, keep, degree, n_base, scatter) -
     chisqr = float(np.sum(result.residual[:n_data] ** 2))
     n_par = n_base + max(degree - 2, 0)
     dof = max(n_data - n_par, 1)
-    redchi = chisqr / dof
+    reduced_chi2 = chisqr / dof
     if result.covar is not None and np.all(np.isfinite(result.covar)):
-        cov = np.array(result.covar) * max(redchi, 1.0)
+        cov = np.array(result.covar) * max(reduced_chi2, 1.0)
         errors = np.sqrt(np.clip(np.diag(cov), 0, None))
         with np.errstate(invalid="ignore", divide="ignore"):
             corr = cov / np.outer(errors, errors)
@@ -330,8 +325,8 @@ def _summarise(result, model, x, lam, sigma_px, keep, degree, n_base, scatter) -
     leverage = _leverage(model, names, result.covar, x, sigma_px, errors)
     return FitResult(model=model, names=names, values=values, errors=errors, covariance=cov,
                      correlation=corr, used=keep, residual_px=residual,
-                     normalized_residual=residual / sigma_px, chisqr=chisqr, redchi=redchi,
-                     bic=float(bic), distortion_degree=degree, success=bool(result.success),
+                     normalized_residual=residual / sigma_px, chisqr=chisqr,
+                     reduced_chi2=reduced_chi2, bic=float(bic), distortion_degree=degree, success=bool(result.success),
                      message=str(result.message), leverage=leverage, scatter_px=scatter,
                      x=x, sigma_px=sigma_px, unscaled_covariance=_unscaled(result.covar, names))
 

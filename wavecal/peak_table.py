@@ -17,7 +17,7 @@ __all__ = ["COLUMNS", "PeakFlag", "PeakTable", "describe_flags"]
 
 #: Columns of :attr:`PeakTable.table`.
 COLUMNS = ("x", "x_err", "fwhm", "fwhm_err", "flux", "flux_err", "amplitude", "background", "snr",
-           "redchi", "flags", "fwhm_expected")
+           "reduced_chi2", "flags", "fwhm_expected")
 
 
 class PeakFlag(enum.IntFlag):
@@ -64,7 +64,7 @@ class PeakTable:
         (pixels; ``fwhm_err`` is NaN when the width was not measured, as for saturated lines),
         ``flux`` and ``flux_err`` (electrons), ``amplitude`` (peak of the Gaussian, electrons per
         pixel), ``background`` (continuum plus local background under the line, electrons per
-        pixel), ``snr`` (``flux / flux_err``; NaN when that is not finite), ``redchi`` (reduced
+        pixel), ``snr`` (``flux / flux_err``; NaN when that is not finite), ``reduced_chi2`` (reduced
         chi-square of the fit), ``flags`` (a :class:`PeakFlag` bit mask) and ``fwhm_expected``
         (the width model's FWHM at ``x``, pixels).
     fwhm_typical : float

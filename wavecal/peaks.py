@@ -459,7 +459,7 @@ def _table(data: SpectrumData, res: _Result, widths: WidthModel, margin: float, 
         "amplitude": st.flux * _INV_SQRT_2PI / st.sigma,
         "background": st.background + continuum,
         "snr": np.where(np.isfinite(snr), snr, np.nan),
-        "redchi": st.redchi,
+        "reduced_chi2": st.redchi,
         "flags": flags,
         "fwhm_expected": expected,
     })

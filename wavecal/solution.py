@@ -20,7 +20,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -46,14 +46,16 @@ from .airvac import air_to_vacuum, vacuum_to_air
 from .fit import wavelength_sigma
 from .optics import GratingModel
 from .slit_shift import SlitShift
+from .solution_records import FitStatistics, PhysicalParameters
 from .status import Status
 
 __all__ = ["Solution", "load_solution", "SCHEMA_VERSION", "READABLE_VERSIONS", "STATUSES"]
 
-#: Version of the JSON layout written by :meth:`Solution.write` (2: optional ``slit`` block).
-SCHEMA_VERSION = 2
+#: Version of the JSON layout written by :meth:`Solution.write` (2: optional ``slit`` block;
+#: 3: statistics ``reduced_chi2``, formerly ``redchi``, and every statistic always present).
+SCHEMA_VERSION = 3
 #: Versions :func:`load_solution` reads.
-READABLE_VERSIONS = (1, 2)
+READABLE_VERSIONS = (1, 2, 3)
 #: Possible verdicts, from best to worst.
 STATUSES = tuple(s.value for s in (Status.OK, Status.SUSPECT, Status.FAILED))
 
@@ -82,14 +84,11 @@ class Solution:
     lines : pandas.DataFrame
         Every detected peak, with its identification (``identification`` is one of ``used``,
         ``rejected``, ``blend``, ``ghost``, ``unidentified``) and residuals.
-    parameters : tuple of dict
-        Fitted parameters: name, value, error, nominal, prior (half-width), shift_sigma.
-    correlation : dict
-        ``{"names": [...], "matrix": [[...]]}`` of the varied parameters.
-    covariance : ndarray or None
-        Covariance of the varied parameters, same order as ``correlation["names"]``.
-    statistics : dict
-        rms_px, rms_nm, rms_kms, redchi, n_used, n_rejected, n_peaks, distortion_degree,
+    parameters : PhysicalParameters
+        Fitted parameters (name, value, error, nominal, prior half-width, shift in prior
+        half-widths) with their covariance and correlation; none for a failed solution.
+    statistics : FitStatistics
+        rms_px, rms_nm, rms_kms, reduced_chi2, n_used, n_rejected, n_peaks, distortion_degree,
         log10_chance, ...
     covered_range_px : tuple of float
         Lowest and highest pixel of the lines used; outside it the solution is extrapolated.
@@ -111,10 +110,8 @@ class Solution:
     medium: str
     model: GratingModel | None
     lines: pd.DataFrame
-    parameters: tuple[dict, ...] = ()
-    correlation: dict = field(default_factory=dict)
-    covariance: np.ndarray | None = None
-    statistics: dict = field(default_factory=dict)
+    parameters: PhysicalParameters = PhysicalParameters()
+    statistics: FitStatistics = FitStatistics()
     covered_range_px: tuple[float, float] = (math.nan, math.nan)
     frame: str | None = None
     profile: str = ""
@@ -214,11 +211,11 @@ class Solution:
         """1-sigma uncertainty (nm) of :meth:`wavelength` from the parameter covariance (the
         slit model's own uncertainty is not included)."""
         model = self._require_model()
-        names = list(self.correlation.get("names", ()))
+        names = list(self.parameters.names)
         x = self._reference_x(np.asarray(x, dtype=float), y)
-        if self.covariance is None or not names:
+        if self.parameters.covariance is None or not names:
             return np.full(np.shape(x), np.nan)
-        return wavelength_sigma(model, names, self.covariance, x)
+        return wavelength_sigma(model, names, self.parameters.covariance, x)
 
     # -- reporting -------------------------------------------------------------------------
     @property
@@ -229,11 +226,11 @@ class Solution:
     @property
     def rms_px(self) -> float:
         """RMS of the residuals of the lines used (pixels)."""
-        return float(self.statistics.get("rms_px", math.nan))
+        return float(self.statistics.rms_px)
 
     def summary(self) -> dict[str, Any]:
         """A JSON-safe dictionary of the headline facts."""
-        stats = {k: jsonable(v) for k, v in self.statistics.items()}
+        stats = {k: jsonable(v) for k, v in self.statistics.to_dict().items()}
         out = {"status": self.status, "reasons": list(self.reasons), "medium": self.medium,
                "frame": self.frame, "profile": self.profile, "lamps": list(self.lamps),
                "covered_range_px": [jsonable(v) for v in self.covered_range_px], **stats,
@@ -248,6 +245,7 @@ class Solution:
     def to_dict(self) -> dict[str, Any]:
         """The full content of the solution file as a JSON-safe dictionary."""
         lines = self.lines.reindex(columns=list(LINE_COLUMNS))
+        parameters = self.parameters.to_dict()
         return {
             "schema": "wavecal-solution",
             "schema_version": SCHEMA_VERSION,
@@ -264,11 +262,12 @@ class Solution:
             "covered_range_px": [jsonable(v) for v in self.covered_range_px],
             "model": None if self.model is None else _model_to_dict(self.model),
             "slit": None if self.slit is None else self.slit.to_dict(),
-            "parameters": [{k: jsonable(v) for k, v in p.items()} for p in self.parameters],
-            "correlation": {"names": list(self.correlation.get("names", ())),
-                            "matrix": jsonable(self.correlation.get("matrix", []))},
-            "covariance": None if self.covariance is None else jsonable(self.covariance),
-            "statistics": {k: jsonable(v) for k, v in self.statistics.items()},
+            "parameters": [{k: jsonable(v) for k, v in p.items()}
+                           for p in parameters["parameters"]],
+            "correlation": {"names": parameters["correlation"]["names"],
+                            "matrix": jsonable(parameters["correlation"]["matrix"])},
+            "covariance": jsonable(parameters["covariance"]),
+            "statistics": {k: jsonable(v) for k, v in self.statistics.to_dict().items()},
             "lines": {col: [jsonable(v) for v in lines[col].tolist()] for col in LINE_COLUMNS},
         }
 
@@ -373,7 +372,8 @@ def _checked(data: Any, path: Path) -> dict[str, Any]:
 def load_solution(path: str | Path) -> Solution:
     """Read a solution file written by :meth:`Solution.write`.
 
-    Files of schema version 1 (no slit model) and 2 are read.
+    Files of schema version 1 (no slit model), 2 and 3 are read; the statistics of versions 1
+    and 2 (``redchi``, a failed solution's counts alone) are read into :class:`FitStatistics`.
 
     Raises
     ------
@@ -410,8 +410,6 @@ def load_solution(path: str | Path) -> Solution:
                                              dtype=float)  # None -> NaN
                                     if col in _FLOAT_LINE_COLUMNS else list(data["lines"][col]))
                               for col in LINE_COLUMNS})
-        cov = data.get("covariance")
-        corr = data.get("correlation") or {}
         slit = data.get("slit")
         return Solution(
             status=Status(data["status"]),
@@ -419,11 +417,8 @@ def load_solution(path: str | Path) -> Solution:
             medium=data["medium"],
             model=model,
             lines=lines,
-            parameters=tuple(data.get("parameters", ())),
-            correlation={"names": tuple(corr.get("names", ())),
-                         "matrix": np.array(corr.get("matrix", []), dtype=float)},
-            covariance=None if cov is None else np.array(cov, dtype=float),
-            statistics={k: (math.nan if v is None else v) for k, v in data["statistics"].items()},
+            parameters=PhysicalParameters.from_dict(data),
+            statistics=FitStatistics.from_dict(data["statistics"]),
             covered_range_px=tuple(_float_or_nan(v) for v in data["covered_range_px"]),
             frame=data.get("frame"),
             profile=data.get("profile", ""),

@@ -33,9 +33,9 @@ def format_summary(solution: Solution) -> str:
     stats = solution.statistics
     ident = solution.lines["identification"].value_counts() if len(solution.lines) else {}
     out.append(f"  lamps     : {'+'.join(solution.lamps)}   profile: {solution.profile}")
-    out.append(f"  peaks     : {stats.get('n_peaks', len(solution.lines))} found, "
+    out.append(f"  peaks     : {stats.n_peaks} found, "
                f"{int(ident.get('used', 0))} used, {int(ident.get('rejected', 0))} rejected, "
-               f"{int(stats.get('n_blends', 0))} blends, {int(ident.get('ghost', 0))} 2nd-order ghosts, "
+               f"{stats.n_blends} blends, {int(ident.get('ghost', 0))} 2nd-order ghosts, "
                f"{int(ident.get('extra', 0))} extra, {int(ident.get('unidentified', 0))} unidentified")
     if solution.model is None:
         return "\n".join(out)
@@ -53,17 +53,16 @@ def format_summary(solution: Solution) -> str:
                    f"{first:.0f} – {last:.0f} (reference row {solution.reference_row:.1f}); "
                    f"degree {slit['degree_x']} along x, {slit['degree_y']} along y; "
                    f"RMS {slit['rms_px']:.3f} px")
-    out.append(f"  residuals : RMS {_fmt(stats.get('rms_px'))} px = {_fmt(stats.get('rms_nm'))} nm = "
-               f"{_fmt(stats.get('rms_kms'))} km/s;  reduced chi2 {_fmt(stats.get('redchi'), 3)};  "
-               f"distortion degree {stats.get('distortion_degree', 0)}")
-    if stats.get("effective_geometry"):
+    out.append(f"  residuals : RMS {_fmt(stats.rms_px)} px = {_fmt(stats.rms_nm)} nm = "
+               f"{_fmt(stats.rms_kms)} km/s;  reduced chi2 {_fmt(stats.reduced_chi2, 3)};  "
+               f"distortion degree {stats.distortion_degree}")
+    if stats.effective_geometry:
         out.append("  parameters of the effective model (geometry unknown: they describe the curve, "
                    "not the hardware):")
     else:
         out.append("  parameters (value ± error, shift from nominal in prior widths):")
-    for p in solution.parameters:
-        label, unit = _PARAMETER_LABELS.get(p["name"], (p["name"].replace("_", " "), ""))
-        shift = p.get("shift_sigma")
-        shift_txt = "" if shift is None or (isinstance(shift, float) and math.isnan(shift)) else f"  ({shift:+.2f})"
-        out.append(f"    {label:<22s} {p['value']:.6g} ± {_fmt(p['error'], 2)} {unit}{shift_txt}")
+    for p in solution.parameters.estimates:
+        label, unit = _PARAMETER_LABELS.get(p.name, (p.name.replace("_", " "), ""))
+        shift_txt = "" if math.isnan(p.shift_sigma) else f"  ({p.shift_sigma:+.2f})"
+        out.append(f"    {label:<22s} {p.value:.6g} ± {_fmt(p.error, 2)} {unit}{shift_txt}")
     return "\n".join(out)

@@ -80,7 +80,7 @@ def main(argv: list[str] | None = None) -> int:
         solution = calibrate_frame(raw, profile)
         solution_path = solution.write(folder / "arc.solution.json")
         print(f"frame: {arc.data.shape[0]} x {arc.data.shape[1]} {arc.data.dtype}; solution "
-              f"{solution.status}, distortion degree {solution.statistics.get('distortion_degree')}, "
+              f"{solution.status}, distortion degree {solution.statistics.distortion_degree}, "
               f"slit model: {'yes' if getattr(solution, 'slit', None) is not None else 'no'}")
         print(f"median of {args.repeat} runs:")
         _report("raw uint16 frame", raw, solution_path, folder, args.repeat)

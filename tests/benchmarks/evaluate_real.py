@@ -119,7 +119,7 @@ def evaluate(data: Path, name: str, offset: tuple[float, float]) -> Outcome:
     start = time.perf_counter()
     solution = calibrate_frame(folder / spec["file"], profile)
     seconds = time.perf_counter() - start
-    n_used = int(solution.statistics.get("n_used", 0))
+    n_used = int(solution.statistics.n_used)
     if solution.model is None:
         return Outcome(name, offset, solution.status, solution.reasons, np.inf, 0.0,
                        pixels.size, n_used, seconds)

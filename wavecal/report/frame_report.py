@@ -57,20 +57,18 @@ def report_stem(solution: Solution) -> str:
 def frame_facts(solution: Solution) -> dict[str, Any]:
     """The facts shown by a frame report, JSON-safe."""
     params = []
-    for p in solution.parameters:
-        shift = p.get("shift_sigma")
-        shift = math.nan if shift is None else float(shift)
-        params.append({**{k: jsonable(v) for k, v in p.items()},
-                       "large_shift": bool(math.isfinite(shift)
-                                           and abs(shift) > LARGE_SHIFT_SIGMA)})
+    for p in solution.parameters.estimates:
+        params.append({**{k: jsonable(v) for k, v in p.to_dict().items()},
+                       "large_shift": bool(math.isfinite(p.shift_sigma)
+                                           and abs(p.shift_sigma) > LARGE_SHIFT_SIGMA)})
     counts = solution.lines["identification"].astype(str).value_counts().to_dict()
     return {"schema": "wavecal-frame-report", "schema_version": 1,
             **solution.summary(),
             "identification_counts": {k: int(v) for k, v in sorted(counts.items())},
             "parameters": params,
-            "correlation": {"names": list(solution.correlation.get("names", ())),
-                            "matrix": jsonable(np.asarray(solution.correlation.get(
-                                "matrix", []), dtype=float))},
+            "correlation": {"names": list(solution.parameters.names),
+                            "matrix": jsonable(np.asarray(solution.parameters.correlation,
+                                                           dtype=float))},
             "software_version": solution.software_version}
 
 

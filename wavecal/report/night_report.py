@@ -77,8 +77,8 @@ def _arc_rows(summary: pd.DataFrame, night: Path, reports_dir: Path, frames: boo
                 solution = None
             if solution is not None:
                 stats = solution.statistics
-                entry.update(n_used=stats.get("n_used"), n_rejected=stats.get("n_rejected"),
-                             n_peaks=stats.get("n_peaks"))
+                entry.update(n_used=stats.n_used, n_rejected=stats.n_rejected,
+                             n_peaks=stats.n_peaks)
                 stem = path.name[:-len(".solution.json")]
                 target = reports_dir / f"{stem}.report.html"
                 if frames:
