@@ -156,3 +156,23 @@ def test_output_names_never_come_from_headers(tmp_path):
         assert "evil" not in p.name
         assert (tmp_path / "out") in p.resolve().parents
     assert res.summary.set_index("file").loc[name, "product"] == f"calibrated/{name[:-5]}.wcal.fits"
+
+
+def test_joint_fit_shares_the_optics_and_follows_the_drift(result, night):
+    # the simulator moves the whole spectrum by the injected camera-axis shift, so the joint
+    # shifts of one configuration differ as the truth does; four arcs share one focal length,
+    # which they determine better together than one arc alone (precisions add)
+    arcs = pd.read_csv(result.out_dir / "joint_arcs.csv")
+    shared = pd.read_csv(result.out_dir / "joint_shared.csv")
+    assert len(arcs) == 8 and arcs["in_joint"].all()
+    for conf, group in arcs.groupby("configuration"):
+        first = night.truth[group["arc"].iloc[0]]
+        for _, row in group.iterrows():
+            injected = night.truth[row["arc"]].truth.axis_pixel - first.truth.axis_pixel
+            assert abs(row["shift_px"] - group["shift_px"].iloc[0] - injected) < 0.05
+        focal = shared[(shared["configuration"] == conf) & (shared["parameter"] == "focal_length_mm")]
+        assert len(focal) == 1
+        assert focal["joint_error"].iloc[0] < focal["single_error"].iloc[0]
+        assert focal["drift_px_per_hour"].iloc[0] == pytest.approx(DRIFT, abs=0.1)
+    page = (result.out_dir / "night_report.html").read_text()
+    assert "The instrument through the night" in page and "focal_length_mm" in page

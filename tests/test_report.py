@@ -179,3 +179,22 @@ def test_numbers_that_round_to_zero_have_no_minus_sign():
     assert fmt(-0.00001, "+.3f") == "+0.000"
     assert fmt(-0.5, "+.3f") == "-0.500"
     assert fmt(float("nan"), ".3f") == "—"
+
+
+def test_report_and_file_say_which_parameters_the_prior_sets(calibration, tmp_path):
+    # one arc fixes the curve (central wavelength, dispersion and its change) but not every
+    # physical parameter behind it: angle and camera-axis pixel move the lines almost alike
+    # (common practice), so at least one of them must be reported as set by its prior
+    solution = calibration.solution
+    found = solution.determination
+    assert all(c.set_by_data for c in found.combinations)
+    assert found.prior_set, [p.to_dict() for p in found.parameters]
+    rep = write_frame_report(solution, tmp_path, spectrum=calibration.spectrum)
+    text = rep.html.read_text()
+    assert "What the data determine" in text
+    for p in found.prior_set:
+        assert f"{p.label} (posterior/prior width {p.width_ratio:.2f})" in text
+    path = solution.write(tmp_path / "arc.solution.json")
+    data = json.loads(path.read_text())
+    assert any("Set mainly by the prior" in s for s in data["determination"]["in_words"])
+    assert load_solution(path).determination == found

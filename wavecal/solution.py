@@ -45,6 +45,7 @@ from .validation import (
 from .airvac import air_to_vacuum, vacuum_to_air
 from .fit import wavelength_sigma
 from .optics import GratingModel
+from .determination import Determination, what_data_determine
 from .slit_shift import SlitShift
 from .solution_records import FitStatistics, PhysicalParameters
 from .status import Status
@@ -125,6 +126,16 @@ class Solution:
         """Row (pixel ``y``) along which the physical model holds as it is; None without a slit
         model."""
         return None if self.slit is None else self.slit.reference_row
+
+    @property
+    def determination(self) -> Determination:
+        """What the lines determine and which parameters their prior sets
+        (:func:`wavecal.determination.what_data_determine`; empty for a failed solution)."""
+        covariance = self.parameters.covariance
+        if self.model is None or covariance is None:
+            return Determination(parameters=(), combinations=())
+        prior = {e.name: e.prior for e in self.parameters.estimates if math.isfinite(e.prior)}
+        return what_data_determine(self.model, self.parameters.names, covariance, prior)
 
     # -- evaluation ------------------------------------------------------------------------
     def _require_model(self) -> GratingModel:
@@ -246,6 +257,7 @@ class Solution:
         """The full content of the solution file as a JSON-safe dictionary."""
         lines = self.lines.reindex(columns=list(LINE_COLUMNS))
         parameters = self.parameters.to_dict()
+        determination = self.determination
         return {
             "schema": "wavecal-solution",
             "schema_version": SCHEMA_VERSION,
@@ -268,6 +280,8 @@ class Solution:
                             "matrix": jsonable(parameters["correlation"]["matrix"])},
             "covariance": jsonable(parameters["covariance"]),
             "statistics": {k: jsonable(v) for k, v in self.statistics.to_dict().items()},
+            "determination": jsonable({**determination.to_dict(),
+                                       "in_words": list(determination.sentences())}),
             "lines": {col: [jsonable(v) for v in lines[col].tolist()] for col in LINE_COLUMNS},
         }
 

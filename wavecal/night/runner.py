@@ -7,6 +7,10 @@ Output layout (``out_dir``)::
     summary.csv          one row per file: kind, configuration, status, reason, solution used,
                          RMS, drift, product, whether it was (re)made in this run
     drift.csv            per configuration: arc, time, shift (px) relative to its first arc
+    joint_arcs.csv       per configuration: the arcs fitted together (shared optics, own shift
+                         and angle), each arc's shift and agreement, the arcs left out and why
+    joint_shared.csv     per configuration: the shared parameters, joint against single-arc
+                         uncertainties, and the drift in px per hour
     night.log            what happened, in plain text
     calibrations/        master bias frames
     solutions/           <stem>.solution.json of every arc (and <stem>.spectrum.npz, its
@@ -37,6 +41,7 @@ from ..status import ExitCode, Status, exit_code_for
 from .assign import POLICIES, ArcPoint, assign
 from .bias import BiasCheck, check_master_bias, combine_bias, read_master_bias, write_master_bias
 from .drift import relative_shift
+from .joint_tables import ARC_COLUMNS, SHARED_COLUMNS, night_tables
 from .executors import TaskPool
 from .inventory import FileRecord, Inventory, build_inventory
 from .tasks import (
@@ -225,9 +230,9 @@ def _arcs(inv: Inventory, out: Path, masters: dict, redo: bool, pool: TaskPool,
 
 
 def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: float, log: _Log
-           ) -> tuple[dict[str, list[ArcPoint]], pd.DataFrame]:
+           ) -> tuple[dict[str, list[ArcPoint]], pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     points: dict[str, list[ArcPoint]] = {}
-    rows = []
+    rows, joint_arcs, joint_shared = [], [], []
     for conf in inv.configurations():
         good = sorted((r for r in inv.of_kind("arc") if r.configuration == conf
                        and arcs.get(r.name, {}).get("status") in (Status.OK, Status.SUSPECT)),
@@ -245,6 +250,8 @@ def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: floa
         if not good:
             continue
         ref = sols[good[0].name]
+        if len(good) >= 2:
+            _joint(conf, good, sols, joint_arcs, joint_shared, log)
         pts = [ArcPoint(r.name, r.time_mjd, relative_shift(sols[r.name], ref)) for r in good]
         for k, p in enumerate(pts):
             if 0 < k < len(pts) - 1:
@@ -266,8 +273,27 @@ def _drift(inv: Inventory, arcs: dict[str, dict[str, Any]], cross_check_px: floa
         points[conf] = pts
         log(f"drift of {conf}: {len(pts)} arcs, shifts "
             + ", ".join(f"{p.shift_px:+.3f}" for p in pts) + " px")
-    return points, pd.DataFrame(rows, columns=["configuration", "arc", "observation_time",
-                                               "shift_px"])
+    return (points, pd.DataFrame(rows, columns=["configuration", "arc", "observation_time",
+                                                "shift_px"]),
+            pd.DataFrame(joint_arcs, columns=list(ARC_COLUMNS)),
+            pd.DataFrame(joint_shared, columns=list(SHARED_COLUMNS)))
+
+
+def _joint(conf: str, good: list[FileRecord], sols: dict[str, Any], joint_arcs: list[dict],
+           joint_shared: list[dict], log: _Log) -> None:
+    """The joint fit of one configuration's solved arcs, added to the night's tables."""
+    try:
+        fit, arc_rows, shared_rows = night_tables(conf, [r.name for r in good],
+                                                  [sols[r.name] for r in good],
+                                                  [r.time_mjd for r in good])
+    except ValueError as exc:  # e.g. arcs of different settings: reported, the night goes on
+        log(f"joint fit of {conf}: not done ({exc})")
+        return
+    joint_arcs += arc_rows
+    joint_shared += shared_rows
+    left = ", ".join(f"{good[o.index].name} ({o.reason})" for o in fit.left_out)
+    log(f"joint fit of {conf}: {len(fit.joined)} of {len(good)} arcs share the optics"
+        + (f"; left out: {left}" if left else ""))
 
 
 def run_night(raw_dir: str | Path,
@@ -346,8 +372,10 @@ def run_night(raw_dir: str | Path,
     with TaskPool(workers=workers, scheduler=scheduler) as pool:  # workers start once
         masters, rows, made = _master_biases(inv, out, redo, log)
         arcs = _arcs(inv, out, masters, redo, pool, progress, log)
-        points, drift = _drift(inv, arcs, cross_check_px, log)
+        points, drift, joint_arcs, joint_shared = _drift(inv, arcs, cross_check_px, log)
         atomic_write_text(out / "drift.csv", drift.to_csv(index=False))
+        atomic_write_text(out / "joint_arcs.csv", joint_arcs.to_csv(index=False))
+        atomic_write_text(out / "joint_shared.csv", joint_shared.to_csv(index=False))
         shifts = {p.name: p.shift_px for pts in points.values() for p in pts}
         for r in inv.of_kind("arc"):
             res = arcs[r.name]

@@ -69,6 +69,8 @@ def frame_facts(solution: Solution) -> dict[str, Any]:
             "correlation": {"names": list(solution.parameters.names),
                             "matrix": jsonable(np.asarray(solution.parameters.correlation,
                                                            dtype=float))},
+            "determination": jsonable(solution.determination.to_dict()),
+            "determination_in_words": list(solution.determination.sentences()),
             "software_version": solution.software_version}
 
 
@@ -119,6 +121,22 @@ def _parameters_html(facts: dict[str, Any]) -> str:
         rows = [(esc(n), *(fmt(v, "+.2f") for v in row)) for n, row in zip(names, matrix)]
         out += "<h3>Correlations</h3>" + table(("", *names), rows)
     return out
+
+
+def _determination_html(solution: Solution) -> str:
+    found = solution.determination
+    if not found.parameters and not found.combinations:
+        return '<p class="note">Nothing determined (no solution).</p>'
+    words = "".join(f"<p>{esc(sentence)}</p>" for sentence in found.sentences())
+    rows, classes = [], []
+    for d in found.combinations + found.parameters:
+        prior = "none" if not math.isfinite(d.prior_sigma) else fmt(d.prior_sigma, ".3g")
+        rows.append((esc(d.label), f"{fmt(d.value, '.7g')} ± {fmt(d.sigma, '.2g')} {esc(d.unit)}",
+                     prior, fmt(d.width_ratio, ".2f"), f"{d.data_share:.0%}",
+                     "the lines" if d.set_by_data else "the prior"))
+        classes.append("" if d.set_by_data else "suspect")
+    return words + table(("quantity", "value", "prior width (1 sigma)", "posterior / prior width",
+                          "precision from the lines", "set by"), rows, row_classes=classes)
 
 
 def _lines_html(solution: Solution) -> str:
@@ -180,7 +198,8 @@ def write_frame_report(solution: Solution, out_dir: str | Path, *,
             "<h2>Summary</h2>", _headline_html(solution, facts)]
     for key, png in pngs.items():
         body += [f"<h2>{esc(captions[key])}</h2>", image(png, captions[key])]
-    body += ["<h2>Fitted physical parameters</h2>", _parameters_html(facts),
+    body += ["<h2>What the data determine</h2>", _determination_html(solution),
+             "<h2>Fitted physical parameters</h2>", _parameters_html(facts),
              "<h2>Every detected peak</h2>", _lines_html(solution)]
     paths = []
     for key, png in pngs.items():

@@ -91,6 +91,39 @@ def _arc_rows(summary: pd.DataFrame, night: Path, reports_dir: Path, frames: boo
     return arcs, written
 
 
+def _joint_html(night: Path) -> str:
+    """The joint fit of each configuration's arcs (``joint_arcs.csv``, ``joint_shared.csv``)."""
+    arcs_path, shared_path = night / "joint_arcs.csv", night / "joint_shared.csv"
+    if not (arcs_path.is_file() and shared_path.is_file()):
+        return '<p class="note">No joint fit (a configuration needs two solved arcs).</p>'
+    arcs, shared = _read_csv(arcs_path), _read_csv(shared_path)
+    if arcs.empty:
+        return '<p class="note">No joint fit (a configuration needs two solved arcs).</p>'
+    out = ['<p>The solved arcs of each configuration are fitted together: the optics are shared, '
+           "each arc has its own shift and grating angle (the drift). An arc whose lines disagree "
+           "with the others is left out and keeps its own solution.</p>"]
+    shared_rows = [(esc(r["configuration"]), esc(r["parameter"]),
+                    f"{fmt(r['joint_value'], '.6g')} ± {fmt(r['joint_error'], '.2g')}",
+                    fmt(r["single_error"], ".2g"),
+                    fmt(r["single_error"] / r["joint_error"] if r["joint_error"] > 0 else math.nan,
+                        ".1f"),
+                    f"{fmt(r['drift_px_per_hour'], '+.3f')} ± {fmt(r['drift_sigma_px_per_hour'], '.3f')}")
+                   for r in shared.to_dict(orient="records")]
+    out.append(table(("configuration", "shared parameter", "joint value", "one arc alone (mean)",
+                      "better by", "drift (px/hour)"), shared_rows))
+    arc_rows = [(esc(r["configuration"]), esc(r["arc"]), "yes" if r["in_joint"] else "no",
+                 f"{fmt(r['shift_px'], '+.3f')} ± {fmt(r['shift_sigma_px'], '.3f')}",
+                 fmt(r["chi2_joint"], ".1f"), fmt(r["chi2_single"], ".1f"),
+                 fmt(r["p_value"], ".2g"),
+                 esc(r["note"] if isinstance(r.get("note"), str) else ""))
+                for r in arcs.to_dict(orient="records")]
+    out.append(table(("configuration", "arc", "joined", "shift (px)", "chi2 joint",
+                      "chi2 alone", "agreement p", "note"), arc_rows,
+                     row_classes=["" if r["in_joint"] else "suspect"
+                                  for r in arcs.to_dict(orient="records")]))
+    return "".join(out)
+
+
 def write_night_report(night_dir: str | Path, *, frames: bool = True) -> NightReport:
     """Write the report of the night output folder ``night_dir``.
 
@@ -146,6 +179,7 @@ def write_night_report(night_dir: str | Path, *, frames: bool = True) -> NightRe
                    row_classes=[classes[i] for i in attention]) if attention
              else '<p class="note">Nothing: every file was calibrated or used.</p>'),
             "<h2>Drift of each configuration</h2>", image(pngs["night_drift"], "drift"),
+            "<h2>The instrument through the night</h2>", _joint_html(night),
             "<h2>Arcs: RMS and line counts</h2>", image(pngs["night_arcs"], "arc quality"),
             table(("arc", "configuration", "time", "status", "RMS (px)", "lines used",
                    "rejected", "frame report"), arc_rows,
