@@ -140,6 +140,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     """
     frame = source if isinstance(source, Frame) else read_frame(source, profile)
     where = frame.path
+    profile = profile.for_header(frame.header, path=where)  # the frame's grating
     if grating_angle_deg is None:
         grating_angle_deg = profile.grating_angle_from_header(frame.header, path=where)
     lamps = tuple(lamps) if lamps else profile.lamps_from_header(frame.header, path=where)
@@ -180,6 +181,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         solution, fit = _fit_and_judge(profile, frame, lamps, table, features, line_list,
                                        extra_list, ident, box, fwhm, free_grooves,
                                        slit.shift if slit is not None else None)
+    solution = dataclasses.replace(solution, grating=profile.grating_name)
     if details:
         return Calibration(solution, spectrum, peaks, ident, fit, nominal, box, slit)
     return solution
