@@ -116,7 +116,8 @@ def test_a_frame_naming_no_grating_is_its_own_problem_and_the_night_goes_on(nigh
     inv = build_inventory(raw, night.profile)
     bad = next(r for r in inv.records if r.name == name)
     assert "\n" not in bad.problem
-    assert bad.problem.startswith(f"{raw / name}: header keyword 'GRATING' = 'G600' names no grating")
+    assert bad.problem.startswith(
+        f"{raw / name}: header keyword 'GRATING' = 'G600' names no grating")
     assert all(not r.problem for r in inv.records if r.name != name)
     assert len(inv.configurations()) == 2
 

@@ -322,8 +322,8 @@ def _examine(path: Path, root: Path, profiles: Mapping[str, InstrumentProfile], 
         return replace(base, problem=f"{path}: not a readable FITS file ({exc})"), None
     key = _select_profile(header, profiles, keyword)
     if not key:
-        return replace(base, kind=classify(header, None),
-                       problem=f"{path}: no profile matches {keyword}={header.get(keyword)!r}"), None
+        problem = f"{path}: no profile matches {keyword}={header.get(keyword)!r}"
+        return replace(base, kind=classify(header, None), problem=problem), None
     profile = profiles[key]
     kind = classify(header, profile)
     rec = replace(base, kind=kind, profile=key)
