@@ -120,6 +120,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     """
     frame = source if isinstance(source, Frame) else read_frame(source, profile)
     where = frame.path
+    profile = profile.for_header(frame.header, path=where)  # the frame's grating
     if grating_angle_deg is None:
         grating_angle_deg = profile.grating_angle_from_header(frame.header, path=where)
     lamps = tuple(lamps) if lamps else profile.lamps_from_header(frame.header, path=where)
@@ -169,7 +170,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         lines=lines, parameters=parameters, statistics=statistics, covered_range_px=covered,
         frame=str(frame.path) if frame.path else None, profile=profile.name, lamps=tuple(lamps),
         dispersion_axis=profile.detector.dispersion_axis, software_version=__version__,
-        slit=shift)
+        slit=shift, grating=profile.grating_name)
     if details:
         return Calibration(solution, spectrum, peaks, ident,
                            refined.fit if refined is not None else None, nominal, box, slit)

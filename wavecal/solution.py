@@ -97,6 +97,8 @@ class Solution:
         The frame the solution came from.
     profile : str
         Name of the instrument profile.
+    grating : str or None
+        Name of the profile's grating used (an instrument with several); None otherwise.
     lamps : tuple of str
     dispersion_axis : int
         numpy axis of the raw frame along which ``x`` runs.
@@ -120,6 +122,7 @@ class Solution:
     dispersion_axis: int = 1
     software_version: str = ""
     slit: SlitShift | None = None
+    grating: str | None = None
 
     @property
     def reference_row(self) -> float | None:
@@ -243,7 +246,8 @@ class Solution:
         """A JSON-safe dictionary of the headline facts."""
         stats = {k: jsonable(v) for k, v in self.statistics.to_dict().items()}
         out = {"status": self.status, "reasons": list(self.reasons), "medium": self.medium,
-               "frame": self.frame, "profile": self.profile, "lamps": list(self.lamps),
+               "frame": self.frame, "profile": self.profile, "grating": self.grating,
+               "lamps": list(self.lamps),
                "covered_range_px": [jsonable(v) for v in self.covered_range_px], **stats,
                "slit": None if self.slit is None else self.slit.summary()}
         if self.model is not None:
@@ -270,6 +274,7 @@ class Solution:
             "dispersion_axis": self.dispersion_axis,
             "frame": self.frame,
             "profile": self.profile,
+            "grating": self.grating,
             "lamps": list(self.lamps),
             "covered_range_px": [jsonable(v) for v in self.covered_range_px],
             "model": None if self.model is None else _model_to_dict(self.model),
@@ -325,6 +330,7 @@ SOLUTION_RULES: dict[str, Rule] = {
     "medium": Choice(("air", "vacuum")), "wavelength_unit": Choice(("nm",)),
     "pixel_convention": Text(), "dispersion_axis": Integer(choices=(0, 1)),
     "frame": Optional(Text(empty=True)), "profile": Text(empty=True),
+    "grating": Optional(Text()),
     "software_version": Text(empty=True), "lamps": Sequence(Text()),
     "covered_range_px": Sequence(_NUMBER_OR_NULL, length=2), "model": Optional(Table()),
     "slit": Optional(Table()), "parameters": Sequence(Table()), "correlation": Table(),
@@ -440,6 +446,7 @@ def load_solution(path: str | Path) -> Solution:
             dispersion_axis=data.get("dispersion_axis", 1),
             software_version=data.get("software_version", ""),
             slit=None if slit is None else SlitShift.from_dict(slit),
+            grating=data.get("grating"),  # files written before gratings had names: None
         )
     except (KeyError, TypeError, ValueError) as exc:
         msg = f"{path}: solution file is inconsistent: {exc}"

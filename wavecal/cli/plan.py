@@ -1,8 +1,9 @@
 """``wavecal plan``: plan a grating setting before the night.
 
 Exit codes (:class:`~wavecal.status.ExitCode`): 0 plan made, 1 bad input (unreadable profile,
-unreachable wavelength, invalid option), 2 usage error (no setting given for a profile whose
-grating angle has no header default), 3 plan made with warnings.
+unreachable wavelength, invalid option, a grating the profile does not list), 2 usage error (no
+setting given for a profile whose grating angle has no header default, no ``--grating`` for a
+profile listing several), 3 plan made with warnings.
 """
 from __future__ import annotations
 
@@ -44,6 +45,8 @@ def add_plan_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the options of ``wavecal plan`` to ``parser``."""
     parser.add_argument("-p", "--profile", required=True,
                         help="instrument profile (TOML file, or the name of a bundled example)")
+    parser.add_argument("--grating", metavar="NAME",
+                        help="the grating to plan for, by name, when the profile lists several")
     setting = parser.add_mutually_exclusive_group()
     setting.add_argument("--grating-angle", type=float, dest="grating_angle",
                          help="physical grating angle in degrees (default for a fixed grating: "
@@ -65,6 +68,8 @@ def add_plan_arguments(parser: argparse.ArgumentParser) -> None:
 
 def _stem(profile, plan) -> str:
     base = profile.source.stem if profile.source is not None else profile.name
+    if profile.grating_name:
+        base = f"{base}_{profile.grating_name}"
     return f"{file_stem(base, default='plan')}_{plan.central_wavelength_nm:.0f}nm"
 
 
@@ -85,6 +90,14 @@ def run_plan_command(args: argparse.Namespace) -> ExitCode:
 
     try:
         profile = load_profile(args.profile)
+        grating = getattr(args, "grating", None)
+        if grating is not None:
+            profile = profile.with_grating(grating)
+        elif profile.gratings:
+            names = ", ".join(e.name for e in profile.gratings)
+            print(f"error: {profile.source or profile.name} lists several gratings ({names}); "
+                  "choose one with --grating", file=sys.stderr)
+            return ExitCode.USAGE
         angle = getattr(args, "grating_angle", None)
         centre = getattr(args, "central_wavelength", None)
         if profile.grating.mount != "approximate" and angle is None and centre is None:

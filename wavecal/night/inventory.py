@@ -57,9 +57,13 @@ class FileRecord:
         One of :data:`KINDS`.
     profile : str
         Key of the profile that describes the file ("" if none does).
+    grating : str
+        The grating setting of an arc or science frame as its header chooses it (the chosen
+        profile's :attr:`~wavecal.profile.InstrumentProfile.configuration_key`: the grating's
+        name, groove density and order from the header); "" for a one-grating profile.
     configuration : str
-        Configuration label (profile, grating angle group, binning, extra keywords); "" when
-        unknown.
+        Configuration label (profile, grating, grating angle group, binning, extra keywords);
+        "" when unknown.
     time_mjd : float
         Start of the exposure (MJD, UTC); NaN when unknown.
     grating_angle : float
@@ -77,6 +81,7 @@ class FileRecord:
     stem: str
     kind: str
     profile: str = ""
+    grating: str = ""
     configuration: str = ""
     time_mjd: float = math.nan
     grating_angle: float = math.nan
@@ -102,12 +107,19 @@ class Inventory:
     root: Path
     records: tuple[FileRecord, ...]
     profiles: Mapping[str, InstrumentProfile] = field(default_factory=dict)
+    #: The profile of each grating setting found, by (profile key, :attr:`FileRecord.grating`).
+    settings: Mapping[tuple[str, str], InstrumentProfile] = field(default_factory=dict)
     #: Every other entry of the folder, with the reason it is not read (see :func:`survey`).
     ignored: tuple[tuple[str, str], ...] = ()
 
     def of_kind(self, kind: str) -> tuple[FileRecord, ...]:
         """Usable records (no problem) of one kind."""
         return tuple(r for r in self.records if r.kind == kind and not r.problem)
+
+    def profile_of(self, record: FileRecord) -> InstrumentProfile:
+        """The profile of a record with its grating chosen (the profile itself when it has one
+        grating)."""
+        return self.settings.get((record.profile, record.grating), self.profiles[record.profile])
 
     def counts(self) -> dict[str, int]:
         """Number of files of each kind (problems counted under their kind)."""
@@ -119,12 +131,12 @@ class Inventory:
 
     def to_dataframe(self) -> pd.DataFrame:
         """One row per file."""
-        rows = [{"file": r.name, "kind": r.kind, "profile": r.profile,
+        rows = [{"file": r.name, "kind": r.kind, "profile": r.profile, "grating": r.grating,
                  "configuration": r.configuration, "observation_time": r.observation_time,
                  "grating_angle_deg": r.grating_angle, "binning": f"{r.binning[0]}x{r.binning[1]}",
                  "exposure_s": r.exposure_s, "problem": r.problem, "size": r.size}
                 for r in self.records]
-        return pd.DataFrame(rows, columns=["file", "kind", "profile", "configuration",
+        return pd.DataFrame(rows, columns=["file", "kind", "profile", "grating", "configuration",
                                            "observation_time", "grating_angle_deg", "binning",
                                            "exposure_s", "problem", "size"])
 
@@ -295,7 +307,9 @@ def _time_mjd(header: fits.Header, profile: InstrumentProfile, path: Path) -> fl
 
 
 def _examine(path: Path, root: Path, profiles: Mapping[str, InstrumentProfile], keyword: str,
-             extra_keywords: Sequence[str]) -> FileRecord:
+             extra_keywords: Sequence[str]) -> tuple[FileRecord, InstrumentProfile | None]:
+    """The record of one file and, for an arc or science frame, its profile with the grating
+    its header chooses (None when there is none)."""
     stat = path.stat()
     base = FileRecord(path=path, name=path.relative_to(root).as_posix(), stem="",
                       kind="unknown", size=stat.st_size, mtime_ns=stat.st_mtime_ns)
@@ -303,17 +317,18 @@ def _examine(path: Path, root: Path, profiles: Mapping[str, InstrumentProfile], 
     try:
         header = _read_header(path, hdus.pop() if len(hdus) == 1 else None)
     except WavecalError as exc:
-        return replace(base, problem=str(exc))
+        return replace(base, problem=str(exc)), None
     except (OSError, ValueError) as exc:
-        return replace(base, problem=f"{path}: not a readable FITS file ({exc})")
+        return replace(base, problem=f"{path}: not a readable FITS file ({exc})"), None
     key = _select_profile(header, profiles, keyword)
     if not key:
-        return replace(base, kind=classify(header, None),
-                       problem=f"{path}: no profile matches {keyword}={header.get(keyword)!r}")
+        problem = f"{path}: no profile matches {keyword}={header.get(keyword)!r}"
+        return replace(base, kind=classify(header, None), problem=problem), None
     profile = profiles[key]
     kind = classify(header, profile)
     rec = replace(base, kind=kind, profile=key)
     problems = []
+    chosen = None
     try:
         rec = replace(rec, binning=profile.binning_from_header(header, path=path))
         if "exposure_time" in profile.header:
@@ -323,7 +338,9 @@ def _examine(path: Path, root: Path, profiles: Mapping[str, InstrumentProfile], 
         problems.append(str(exc))
     if kind in ("arc", "science"):
         try:
-            rec = replace(rec, grating_angle=profile.grating_angle_from_header(header, path=path))
+            chosen = profile.for_header(header, path=path)
+            rec = replace(rec, grating=chosen.configuration_key,
+                          grating_angle=chosen.grating_angle_from_header(header, path=path))
         except WavecalError as exc:
             problems.append(str(exc))
         try:
@@ -336,18 +353,19 @@ def _examine(path: Path, root: Path, profiles: Mapping[str, InstrumentProfile], 
         except WavecalError:
             pass  # calibration frames need no time
     extra = tuple((k, str(header.get(k, "")).strip()) for k in extra_keywords)
-    return replace(rec, extra=extra, problem="; ".join(problems))
+    return replace(rec, extra=extra, problem="; ".join(problems)), chosen
 
 
 def _configurations(records: list[FileRecord], tolerance_deg: float) -> list[FileRecord]:
-    """Group arcs and science frames: same profile, binning and extra keywords, and grating
-    angles that chain together within ``tolerance_deg``."""
+    """Group arcs and science frames: same profile, grating, binning and extra keywords, and
+    grating angles that chain together within ``tolerance_deg``."""
     groups: dict[tuple, list[int]] = {}
     for i, r in enumerate(records):
         if r.kind in ("arc", "science") and not r.problem:
-            groups.setdefault((r.profile, r.binning, r.extra), []).append(i)
+            groups.setdefault((r.profile, r.grating, r.binning, r.extra), []).append(i)
     out = list(records)
-    for (profile, binning, extra), members in sorted(groups.items(), key=lambda kv: str(kv[0])):
+    for (profile, grating, binning, extra), members in sorted(groups.items(),
+                                                               key=lambda kv: str(kv[0])):
         members.sort(key=lambda i: records[i].grating_angle)
         cluster: list[int] = []
         for i in [*members, None]:
@@ -356,7 +374,8 @@ def _configurations(records: list[FileRecord], tolerance_deg: float) -> list[Fil
                 cluster.append(i)
                 continue
             angles = [records[j].grating_angle for j in cluster]
-            label = (f"{profile}/angle{sum(angles) / len(angles):.3f}/"
+            label = (f"{profile}/" + (f"{grating}/" if grating else "")
+                     + f"angle{sum(angles) / len(angles):.3f}/"
                      f"bin{binning[0]}x{binning[1]}"
                      + "".join(f"/{k}={v}" for k, v in extra))
             for j in cluster:
@@ -389,7 +408,10 @@ def build_inventory(root: str | Path,
         The night's directory (never modified).
     profiles : InstrumentProfile or mapping of str to InstrumentProfile
         One profile, or several keyed by name: each file gets the profile whose key or
-        ``name`` equals its ``profile_keyword`` header value (case-insensitive).
+        ``name`` equals its ``profile_keyword`` header value (case-insensitive). A profile
+        listing several gratings chooses each arc's and science frame's from its header
+        (:meth:`~wavecal.profile.InstrumentProfile.for_header`); a header naming none makes
+        that file's problem.
     recursive : bool
         Also look in sub-folders.
     profile_keyword : str
@@ -414,8 +436,10 @@ def build_inventory(root: str | Path,
         profiles = {profiles.name: profiles}
     profiles = dict(profiles)
     found, ignored = survey(root, recursive=recursive, exclude=exclude)
-    records = [_examine(p, root, profiles, profile_keyword, tuple(extra_keywords))
-               for p in found]
-    records = _unique_stems(_configurations(records, angle_tolerance_deg))
-    return Inventory(root=root, records=tuple(records), profiles=profiles,
+    examined = [_examine(p, root, profiles, profile_keyword, tuple(extra_keywords))
+                for p in found]
+    settings = {(r.profile, r.grating): chosen for r, chosen in examined
+                if chosen is not None and not r.problem}
+    records = _unique_stems(_configurations([r for r, _ in examined], angle_tolerance_deg))
+    return Inventory(root=root, records=tuple(records), profiles=profiles, settings=settings,
                      ignored=tuple(ignored))

@@ -219,7 +219,7 @@ def _arcs(inv: Inventory, out: Path, masters: dict, redo: bool, pool: TaskPool,
         if result is not None:
             outcome[r.name] = {**result, "made": False}
             continue
-        jobs.append((r, {"path": str(r.path), "profile": inv.profiles[r.profile],
+        jobs.append((r, {"path": str(r.path), "profile": inv.profile_of(r),
                          "bias_path": None if bias is None else str(bias),
                          "product": str(product), "manifest": str(manifest), "key": key}))
     log(f"arcs: {len(outcome)} up to date, {len(jobs)} to calibrate")
@@ -407,7 +407,7 @@ def run_night(raw_dir: str | Path,
                                             rms_px=result.get("rms_px"), **base)
                 continue
             science_rows[r.name] = _row(r, made=True, **base)
-            jobs.append((r, {"path": str(r.path), "profile": inv.profiles[r.profile],
+            jobs.append((r, {"path": str(r.path), "profile": inv.profile_of(r),
                              "bias_path": None if bias is None else str(bias),
                              "solution_path": str(solution), "shift_px": choice.shift_px,
                              "product": str(product), "manifest": str(manifest), "key": key}))

@@ -1,6 +1,7 @@
 """A synthetic night of invented data (the invented Tamsin Hill Observatory) for tests, demos
 and benchmarks: two configurations whose lines drift through the night, science frames,
-biases, flats, and a set of bad files."""
+biases, flats, and a set of bad files (:func:`make_night`); or a night of an instrument with
+two gratings described by one profile, binned differently (:func:`make_grating_night`)."""
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -14,7 +15,8 @@ from astropy.time import Time
 from ..profile import InstrumentProfile, profile_from_dict
 from ..simulate import SimulatedArc, simulate_arc
 
-__all__ = ["night_profile", "SyntheticNight", "make_night"]
+__all__ = ["night_profile", "grating_night_profile", "GRATING_NIGHT_SETTINGS", "SyntheticNight",
+           "make_night", "make_grating_night"]
 
 BIAS_ADU = 300.0
 
@@ -35,6 +37,34 @@ def night_profile() -> InstrumentProfile:
                    "observation_time": {"keyword": "DATE-OBS"},
                    "binning": {"keyword": "BINXY", "default": "1 1"}},
     })
+
+
+def grating_night_profile() -> InstrumentProfile:
+    """The night camera with a grating wheel: 1200 and 300 grooves/mm chosen by the GRATING
+    keyword, binning along each axis from COLBIN (NAXIS1) and ROWBIN (NAXIS2)."""
+    return profile_from_dict({
+        "instrument": {"name": "Tamsin Hill night camera with grating wheel", "medium": "air"},
+        "grating": {"mount": "reflection", "deviation_deg": 30.0},
+        "gratings": [{"name": "G1200", "grooves_per_mm": 1200.0, "blaze_nm": 750.0},
+                     {"name": "G300", "grooves_per_mm": 300.0, "blaze_nm": 500.0}],
+        "camera": {"focal_length_mm": 250.0},
+        "detector": {"pixel_size_um": 15.0, "shape": [64, 1024], "bias_adu": BIAS_ADU,
+                     "saturation_adu": 65000, "gain_e_per_adu": 1.2, "read_noise_e": 4.0},
+        "header": {"grating": {"keyword": "GRATING"},
+                   "grating_angle": {"keyword": "GRTANGLE"}, "lamps": {"keyword": "ARCLAMPS"},
+                   "image_type": {"keyword": "FRAMETYP", "default": "unknown"},
+                   "exposure_time": {"keyword": "EXPOSURE", "default": 0.0},
+                   "observation_time": {"keyword": "DATE-OBS"},
+                   "binning_x": {"keyword": "COLBIN", "default": 1},
+                   "binning_y": {"keyword": "ROWBIN", "default": 1}},
+    })
+
+
+#: The settings of :func:`make_grating_night`: grating, nominal central wavelength (nm),
+#: binning (along rows, along columns) and lamps. The 1200/mm grating covers only ~50 nm on the
+#: 1024 pixels: at 640 nm a Ne+Ar lamp puts about a dozen listed lines on it (Hg+Ar gave 4-6
+#: near 785-826 nm, too few to identify).
+GRATING_NIGHT_SETTINGS = (("G1200", 640.0, (1, 1), "Ne+Ar"), ("G300", 600.0, (2, 1), "Hg+Ar"))
 
 
 @dataclass(frozen=True)
@@ -133,3 +163,40 @@ def make_night(root: str | Path, *, seed: int = 7, n_arcs: int = 4, n_science: i
                       "bad_nan.fits": "arc", "bad_nokeyword.fits": "arc",
                       "bad_nolines.fits": "arc", "bad_noarc.fits": "science"})
     return SyntheticNight(root, profile, kinds, truth, config, bad)
+
+
+def make_grating_night(root: str | Path, *, seed: int = 7, n_arcs: int = 2, n_science: int = 2,
+                       drift_px_per_hour: float = 0.3) -> SyntheticNight:
+    """Write a night of one instrument with two gratings into ``root``: arcs and science frames
+    of each setting of :data:`GRATING_NIGHT_SETTINGS` (the 1200/mm grating unbinned, the
+    300/mm one binned by two along the slit: ROWBIN 2, COLBIN 1), interleaved in time, under one
+    profile (:func:`grating_night_profile`); no bias, flat or bad files. ``configuration``
+    gives each frame's index in :data:`GRATING_NIGHT_SETTINGS`."""
+    root = Path(root)
+    root.mkdir(parents=True, exist_ok=True)
+    wheel = grating_night_profile()
+    start = Time("2025-03-15T19:00:00", scale="utc")
+    rng = np.random.default_rng(seed)
+    kinds, truth, config = {}, {}, {}
+    frames = []
+    for c in range(len(GRATING_NIGHT_SETTINGS)):
+        arcs = np.linspace(0.0, 8.0, n_arcs)
+        frames += [(h, c, True) for h in arcs]
+        frames += [(float(h), c, False) for h in rng.uniform(0.3, 7.7, n_science)]
+    for n, (h, c, arc) in enumerate(sorted(frames), start=1):
+        grating, centre, bins, lamps = GRATING_NIGHT_SETTINGS[c]
+        sim = simulate_arc(wheel.with_grating(grating), lamps=lamps, seed=seed + c,
+                           central_wavelength_nm=centre, axis_error_px=drift_px_per_hour * h,
+                           noise_seed=seed + 100 * n, bias_adu=BIAS_ADU, missing_fraction=0.05,
+                           binning=bins, date_obs=(start + float(h) * u.hour).isot,
+                           exposure_s=20.0 if arc else 600.0)
+        name = f"{'arc' if arc else 'obj'}_{n:04d}.fits"
+        header = sim.header.copy()
+        if not arc:
+            header["FRAMETYP"] = "object"
+            del header["ARCLAMPS"]
+        fits.PrimaryHDU(sim.data, header).writeto(root / name)
+        kinds[name] = "arc" if arc else "science"
+        truth[name] = sim
+        config[name] = c
+    return SyntheticNight(root, wheel, kinds, truth, config, {})

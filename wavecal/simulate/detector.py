@@ -20,7 +20,7 @@ def frame_binning(profile: InstrumentProfile, binning) -> tuple[int, int]:
     if len(bins) != 2 or any(b not in (1, 2) for b in bins):
         msg = f"binning must be 1 or 2 (or a pair of them), got {binning!r}"
         raise ValueError(msg)
-    if bins != (1, 1) and "binning" not in profile.header:
+    if bins != (1, 1) and not {"binning", "binning_x"} & set(profile.header):
         msg = f"profile {profile.name!r} maps no header keyword for binning; cannot bin"
         raise ValueError(msg)
     return (int(bins[0]), int(bins[1]))
@@ -186,14 +186,24 @@ def _add_cosmic_rays(counts, layout, rng, count) -> None:
 
 # -- header ----------------------------------------------------------------------------------
 def frame_header(profile, header_angle, lamps, exposure_s, date_obs, bins) -> fits.Header:
+    """The header of a simulated arc, under the profile's keywords: grating angle, lamps, frame
+    type, exposure, time, binning (one keyword or two), and for an instrument of several
+    gratings the chosen grating's name (the first listed when none is chosen) with the groove
+    density and order when the profile maps them."""
     header = fits.Header()
+    grating = profile.grating_name or (profile.gratings[0].name if profile.gratings else None)
     values = {
+        "grating": (grating, "grating in use"),
+        "grooves_per_mm": (profile.grating.grooves_per_mm, "grating grooves per mm"),
+        "order": (profile.grating.order, "diffraction order"),
         "grating_angle": (header_angle, "grating angle [deg]"),
         "lamps": ("+".join(lamps), "arc lamps on"),
         "image_type": ("arc", "frame type"),
         "exposure_time": (float(exposure_s), "exposure time [s]"),
         "observation_time": (date_obs, "start of exposure (UTC)"),
         "binning": (f"{bins[1]} {bins[0]}", "binning along NAXIS1, NAXIS2"),
+        "binning_x": (bins[1], "binning along NAXIS1"),
+        "binning_y": (bins[0], "binning along NAXIS2"),
     }
     header["DATE-OBS"] = (date_obs, "start of exposure (UTC)")
     for quantity, (value, comment) in values.items():
