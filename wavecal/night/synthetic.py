@@ -113,12 +113,7 @@ def make_night(root: str | Path, *, seed: int = 7, n_arcs: int = 4, n_science: i
                                axis_error_px=drift_px_per_hour * h, noise_seed=seed + 100 * n,
                                bias_adu=BIAS_ADU, missing_fraction=0.05, date_obs=date,
                                exposure_s=20.0 if arc else 600.0)
-            name = f"{'arc' if arc else 'obj'}_{n:04d}.fits"
-            header = sim.header.copy()
-            if not arc:
-                header["FRAMETYP"] = "object"
-                del header["ARCLAMPS"]
-            fits.PrimaryHDU(sim.data, header).writeto(root / name)
+            name = _write_frame(root, n, sim, arc)
             kinds[name] = "arc" if arc else "science"
             truth[name] = sim
             config[name] = c
@@ -190,13 +185,19 @@ def make_grating_night(root: str | Path, *, seed: int = 7, n_arcs: int = 2, n_sc
                            noise_seed=seed + 100 * n, bias_adu=BIAS_ADU, missing_fraction=0.05,
                            binning=bins, date_obs=(start + float(h) * u.hour).isot,
                            exposure_s=20.0 if arc else 600.0)
-        name = f"{'arc' if arc else 'obj'}_{n:04d}.fits"
-        header = sim.header.copy()
-        if not arc:
-            header["FRAMETYP"] = "object"
-            del header["ARCLAMPS"]
-        fits.PrimaryHDU(sim.data, header).writeto(root / name)
+        name = _write_frame(root, n, sim, arc)
         kinds[name] = "arc" if arc else "science"
         truth[name] = sim
         config[name] = c
     return SyntheticNight(root, wheel, kinds, truth, config, {})
+
+
+def _write_frame(root: Path, n: int, sim: SimulatedArc, arc: bool) -> str:
+    """Write frame ``n`` of a night (an arc, or an object frame without lamps); its file name."""
+    name = f"{'arc' if arc else 'obj'}_{n:04d}.fits"
+    header = sim.header.copy()
+    if not arc:
+        header["FRAMETYP"] = "object"
+        del header["ARCLAMPS"]
+    fits.PrimaryHDU(sim.data, header).writeto(root / name)
+    return name
