@@ -160,16 +160,12 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     line_list = load_line_list(lamps, medium=profile.medium)
     extras = tuple(e for e in POSSIBLE_EXTRAS if e not in {lamp.capitalize() for lamp in lamps})
     extra_list = load_line_list(extras, medium=profile.medium) if extras else None
-    lo, hi = _reachable_range(nominal, box)
-
     table = _detections(peaks.table, min_snr, nominal.n_pixels)
     x = table["x"].to_numpy(float)
     fwhm = float(peaks.fwhm_typical) if np.isfinite(peaks.fwhm_typical) else 3.0
-    in_range = line_list.in_range(lo, hi)
-    features = resolve_lines(in_range, nominal, peaks.fwhm_at)
-    ident = identify_lines(nominal, box, x, features.lines.wavelength_nm,
-                           intensity=features.lines.intensity,
-                           vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
+    nominal, in_range, ident = _identify(nominal, box, line_list, x, table["snr"].to_numpy(float),
+                                         peaks, fwhm,
+                                         both_directions=profile.detector.wavelength_increases == 0)
     fit = None
     if ident.best is None:
         solution = _failed(profile, frame, lamps, table, ident.notes or ("no identification",))
@@ -183,6 +179,42 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     if details:
         return Calibration(solution, spectrum, peaks, ident, fit, nominal, box, slit)
     return solution
+
+
+def _identify(nominal: GratingModel, box: PriorBox, line_list: LineList, x: np.ndarray,
+              snr: np.ndarray, peaks: PeakTable, fwhm: float, *,
+              both_directions: bool) -> tuple[GratingModel, LineList, Identification]:
+    """The blind identification (:func:`~wavecal.match.identify_lines`) of the listed lines
+    reachable within the prior box, resolved at the frame's line width.
+
+    With ``both_directions`` (a rough profile that does not say which way wavelength
+    increases) it is run for either direction and the more significant identification is
+    kept: the number of hypotheses examined is the sum over both searches (twice as many,
+    about ``log10(2)`` more in ``log10_trials``), and the other direction's best hypothesis
+    competes as the runner-up, so that a direction the frame cannot decide is ``ambiguous``.
+
+    Returns the nominal model in the chosen direction, the listed lines in its reachable
+    range, and the identification.
+    """
+    tried = []
+    for direction in (1, -1) if both_directions else (nominal.direction,):
+        model = nominal.with_parameters(direction=direction)
+        in_range = line_list.in_range(*_reachable_range(model, box))
+        features = resolve_lines(in_range, model, peaks.fwhm_at)
+        tried.append((model, in_range, identify_lines(
+            model, box, x, features.lines.wavelength_nm, intensity=features.lines.intensity,
+            vote_weight=snr, fwhm_px=fwhm)))
+    if len(tried) == 1:
+        return tried[0]
+    tried.sort(key=lambda t: t[2].best.log10_chance if t[2].best is not None else math.inf)
+    (model, in_range, ident), (_, _, other) = tried
+    rivals = [h for h in (ident.runner_up, other.best) if h is not None]
+    high, low = sorted((ident.log10_trials, other.log10_trials), reverse=True)
+    ident = dataclasses.replace(
+        ident, runner_up=min(rivals, key=lambda h: h.log10_chance, default=None),
+        n_candidates=ident.n_candidates + other.n_candidates,
+        log10_trials=high + math.log10(1.0 + 10.0 ** (low - high)))  # log10 of the sum
+    return model, in_range, ident
 
 
 def _measure_slit(frame: Frame, spectrum: Spectrum, peaks: PeakTable, *,
