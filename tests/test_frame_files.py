@@ -121,6 +121,7 @@ def test_pixel_column_keeps_the_file_numbering(tmp_path):
     ("# only a comment\npixel,counts\n", ["holds no values"]),
     ("10\n20\nlots\n40\n", ["line 3", "'lots'"]),
     ("counts\n10\ncounts\n40\n", ["line 3", "'counts'"]),  # column names: first line only
+    ("pixel,counts\npixel,counts\n0,10\n", ["line 2", "'pixel'"]),
     ("0,10\n1,20\n1,30\n", ["line 3", "count up by one"]),
     ("0,10\n2,20\n3,30\n", ["line 2", "count up by one"]),
     ("400.1,10\n400.6,20\n401.1,30\n", ["line 2", "wavelength"]),
