@@ -308,3 +308,24 @@ def test_unknown_direction_finds_a_reversed_frame_and_pays_for_the_second_search
     # two searches: twice the trials (to the rounding of the two searches' own counts)
     assert found.statistics["log10_trials"] == pytest.approx(
         known.statistics["log10_trials"] + np.log10(2.0), abs=0.05)
+
+
+def test_solve_reads_a_csv_spectrum_and_subtracts_its_dark(tmp_path, capsys):
+    from wavecal.cli.main import main
+    from wavecal.status import ExitCode
+
+    profile, spectrum = demo_spectrum(1)
+    toml = tmp_path / "outreach.toml"
+    toml.write_text(example_profile_paths()["tho_approximate"].read_text().replace(
+        "read_noise_e = 2.5", f"read_noise_e = {profile.detector.read_noise_e!r}"))
+    arc = tmp_path / "arc.csv"
+    arc.write_text("\n".join(f"{v:.9g}" for v in spectrum) + "\n")
+    twin = tmp_path / "twin.csv"  # a "dark" holding the arc itself leaves nothing to calibrate
+    twin.write_bytes(arc.read_bytes())
+    before = sha256(arc)
+    assert main(["solve", str(arc), "-p", str(toml), "-o", str(tmp_path / "a"), "--no-report"]) \
+        == ExitCode.OK
+    assert main(["solve", str(arc), "-p", str(toml), "-o", str(tmp_path / "b"), "--no-report",
+                 "--dark", str(twin)]) == ExitCode.FAILED
+    assert sha256(arc) == before
+    capsys.readouterr()

@@ -1,6 +1,7 @@
-"""Raw FITS frames: reading, bias/overscan removal, trimming, masks and the noise model.
+"""Raw frames: reading, bias/overscan removal, trimming, masks, darks and the noise model.
 
-A raw arc frame is read once, read-only, into a :class:`Frame` holding the illuminated pixels in
+A raw arc frame (FITS, or a text spectrum or camera image read by :mod:`wavecal.frame_files`) is
+read once, read-only, into a :class:`Frame` holding the illuminated pixels in
 electrons, their variance from the detector noise model and masks of unusable pixels. Nothing
 further down the pipeline re-opens the file.
 
@@ -73,8 +74,9 @@ class Frame:
     bad : ndarray of bool, shape (M, N)
         Unusable pixels: non-finite raw values and saturated pixels.
     saturated : ndarray of bool, shape (M, N)
-        Pixels whose raw value reached the profile's ``saturation_adu``. Their ``data`` keeps the
-        (lower-bound) value read.
+        Pixels whose raw value reached the profile's ``saturation_adu`` (default: 65535, or for a
+        camera image its bit depth's full scale). Their ``data`` keeps the (lower-bound) value
+        read.
     header : astropy.io.fits.Header
         A copy of the image HDU's header; for an extension, primary-header keywords it lacks are
         appended.
