@@ -9,7 +9,9 @@ New cases are one line of ``CASES``:
   to ``wavecal show`` and ``wavecal apply``;
 * ``argv``: a command line; ``{arc}`` is a 200 × 1280 arc frame, ``{tiny}`` a 2 × 2 frame,
   ``{badlamp}`` an arc whose header names the lamp "Arr", ``{spectrum}`` a 1-D spectrum,
-  ``{solution}`` a good solution file, ``{out}`` an output folder.
+  ``{solution}`` a good solution file, ``{out}`` an output folder; ``{empty}`` an empty text
+  spectrum, ``{words}`` a CSV spectrum with a word among its counts, ``{stack}`` a TIFF of three
+  images (a 3-D image), ``{palette}`` a palette PNG.
 
 The expected word is a piece of the message (the key or option it must name).
 """
@@ -23,6 +25,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from astropy.io import fits
+from PIL import Image
 
 from wavecal.cli.main import main
 from wavecal.profile import example_profile_paths
@@ -71,6 +74,7 @@ CASES = [
     ("profile", "detector.dispersion_axis = 2", "dispersion_axis"),
     ("profile", "detector.dispersion_axis = true", "dispersion_axis"),
     ("profile", "detector.wavelength_increases = 0", "wavelength_increases"),
+    ("profile", 'detector.wavelength_increases = "unknown"', "wavelength_increases"),
     ("profile", "detector.gain_e_per_adu = -1.2", "gain_e_per_adu"),
     ("profile", "detector.read_noise_e = -4.0", "read_noise_e"),
     ("profile", 'detector.bias_adu = "zero"', "bias_adu"),
@@ -100,6 +104,12 @@ CASES = [
     ("argv", "solve {arc} -p tho_approximate -o {out} --lamps xyz", "--lamps"),
     ("argv", "solve {badlamp} -p tho_approximate -o {out}", "Arr"),
     ("argv", "solve {tiny} -p tho_approximate -o {out}", "tiny.fits"),
+    ("argv", "solve {empty} -p tho_approximate -o {out}", "empty.txt"),
+    ("argv", "solve {words} -p tho_approximate -o {out}", "words.csv"),
+    ("argv", "solve {stack} -p tho_approximate -o {out}", "stack.tif"),
+    ("argv", "solve {palette} -p tho_approximate -o {out}", "palette.png"),
+    ("argv", "solve {arc} -p tho_approximate -o {out} --dark {tiny}", "tiny.fits"),
+    ("argv", "solve {arc} -p tho_approximate -o {out} --dark {empty}", "empty.txt"),
     ("argv", "solve {arc} -o {out}", "--profile"),
     ("argv", "", "command"),
     ("argv", "solve {arc} -p tho_approximate --frobnicate", "--frobnicate"),
@@ -187,6 +197,13 @@ def files(tmp_path_factory) -> dict[str, Path]:
     fits.PrimaryHDU(arc.astype(np.float32), header=fits.Header(
         {**header, "ARCLAMPS": "Hg+Arr"})).writeto(out["badlamp"])
     fits.PrimaryHDU(np.ones(4096, np.float32)).writeto(out["spectrum"])
+    out |= {"empty": folder / "empty.txt", "words": folder / "words.csv",
+            "stack": folder / "stack.tif", "palette": folder / "palette.png"}
+    out["empty"].write_text("")
+    out["words"].write_text("pixel,counts\n0,12\n1,many\n2,14\n")
+    layers = [Image.fromarray(np.full((20, 30), v, np.uint8)) for v in (1, 2, 3)]
+    layers[0].save(out["stack"], save_all=True, append_images=layers[1:])
+    Image.fromarray(np.zeros((20, 30, 3), np.uint8)).convert("P").save(out["palette"])
     out["out"].mkdir()
     return out
 

@@ -27,7 +27,7 @@ from .extract import Spectrum, extract_spectrum
 from .features import resolve_lines
 from .fit import FitResult
 from .frames import Frame, read_frame
-from .linelists import load_line_list
+from .linelists import LineList, load_line_list
 from .match import Identification, identify_lines
 from .model_setup import PriorBox, nominal_model, prior_box
 from .optics import GratingModel
@@ -137,11 +137,9 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     line_list = load_line_list(lamps, medium=profile.medium)
     extras = tuple(e for e in POSSIBLE_EXTRAS if e not in {lamp.capitalize() for lamp in lamps})
     extra_list = load_line_list(extras, medium=profile.medium) if extras else None
-    in_range = line_list.in_range(*_reachable_range(nominal, box))
-    features = resolve_lines(in_range, nominal, peaks.fwhm_at)
-    ident = identify_lines(nominal, box, table["x"].to_numpy(float),
-                           features.lines.wavelength_nm, intensity=features.lines.intensity,
-                           vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
+    nominal, in_range, ident = _identify(
+        nominal, box, line_list, table["x"].to_numpy(float), table["snr"].to_numpy(float), peaks,
+        fwhm, both_directions=profile.detector.wavelength_increases == 0)
 
     refined = None
     verdict = Verdict(Status.FAILED, ident.notes or ("no identification",))
@@ -237,6 +235,42 @@ def _slit_sigma(slit: SlitMeasurement | None) -> Callable[[np.ndarray], np.ndarr
 
 
 # -- identification and verdict -------------------------------------------------------------
+def _identify(nominal: GratingModel, box: PriorBox, line_list: LineList, x: np.ndarray,
+              snr: np.ndarray, peaks: PeakTable, fwhm: float, *,
+              both_directions: bool) -> tuple[GratingModel, LineList, Identification]:
+    """The blind identification (:func:`~wavecal.match.identify_lines`) of the listed lines
+    reachable within the prior box, resolved at the frame's line width.
+
+    With ``both_directions`` (a rough profile that does not say which way wavelength
+    increases) it is run for either direction and the more significant identification is
+    kept: the number of hypotheses examined is the sum over both searches (twice as many,
+    about ``log10(2)`` more in ``log10_trials``), and the other direction's best hypothesis
+    competes as the runner-up, so that a direction the frame cannot decide is ``ambiguous``.
+
+    Returns the nominal model in the chosen direction, the listed lines in its reachable
+    range, and the identification.
+    """
+    tried = []
+    for direction in (1, -1) if both_directions else (nominal.direction,):
+        model = nominal.with_parameters(direction=direction)
+        in_range = line_list.in_range(*_reachable_range(model, box))
+        features = resolve_lines(in_range, model, peaks.fwhm_at)
+        tried.append((model, in_range, identify_lines(
+            model, box, x, features.lines.wavelength_nm, intensity=features.lines.intensity,
+            vote_weight=snr, fwhm_px=fwhm)))
+    if len(tried) == 1:
+        return tried[0]
+    tried.sort(key=lambda t: t[2].best.log10_chance if t[2].best is not None else math.inf)
+    (model, in_range, ident), (_, _, other) = tried
+    rivals = [h for h in (ident.runner_up, other.best) if h is not None]
+    high, low = sorted((ident.log10_trials, other.log10_trials), reverse=True)
+    ident = dataclasses.replace(
+        ident, runner_up=min(rivals, key=lambda h: h.log10_chance, default=None),
+        n_candidates=ident.n_candidates + other.n_candidates,
+        log10_trials=high + math.log10(1.0 + 10.0 ** (low - high)))  # log10 of the sum
+    return model, in_range, ident
+
+
 def _detections(table: pd.DataFrame, min_snr: float, n_pixels: int) -> pd.DataFrame:
     """The peaks that are detections: fitted at the detection threshold or above, with their
     centre on the detector (a fit of a crowded group can leave a faint member, or one pushed

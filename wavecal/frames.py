@@ -1,6 +1,7 @@
-"""Raw FITS frames: reading, bias/overscan removal, trimming, masks and the noise model.
+"""Raw frames: reading, bias/overscan removal, trimming, masks, darks and the noise model.
 
-A raw arc frame is read once, read-only, into a :class:`Frame` holding the illuminated pixels in
+A raw arc frame (FITS, or a text spectrum or camera image read by :mod:`wavecal.frame_files`) is
+read once, read-only, into a :class:`Frame` holding the illuminated pixels in
 electrons, their variance from the detector noise model and masks of unusable pixels. Nothing
 further down the pipeline re-opens the file.
 
@@ -25,6 +26,7 @@ import math
 import warnings
 from collections.abc import Iterator
 from contextlib import contextmanager
+import dataclasses
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -33,10 +35,15 @@ import numpy as np
 from astropy.io import fits
 
 from .errors import FrameError
+from .frame_files import RawFile, frame_file_kind, read_camera_image, read_text_spectrum
 from .profile import InstrumentProfile
 
 __all__ = ["open_fits", "image_hdu_index", "image_header", "image_data", "read_image", "Frame",
-           "read_frame", "frame_from_array"]
+           "read_frame", "frame_from_array", "subtract_dark", "DARK_EXPOSURE_TOLERANCE"]
+
+#: Largest relative difference between the exposure times of an arc and the dark subtracted
+#: from it (when both headers give one).
+DARK_EXPOSURE_TOLERANCE = 0.01
 
 _log = logging.getLogger(__name__)
 
@@ -67,8 +74,9 @@ class Frame:
     bad : ndarray of bool, shape (M, N)
         Unusable pixels: non-finite raw values and saturated pixels.
     saturated : ndarray of bool, shape (M, N)
-        Pixels whose raw value reached the profile's ``saturation_adu``. Their ``data`` keeps the
-        (lower-bound) value read.
+        Pixels whose raw value reached the profile's ``saturation_adu`` (default: 65535, or for a
+        camera image its bit depth's full scale). Their ``data`` keeps the (lower-bound) value
+        read.
     header : astropy.io.fits.Header
         A copy of the image HDU's header; for an extension, primary-header keywords it lacks are
         appended.
@@ -108,14 +116,17 @@ class Frame:
 
 def read_frame(path: str | Path, profile: InstrumentProfile, *, hdu: int | str | None = None,
                bias: np.ndarray | None = None, bad_pixels: np.ndarray | None = None) -> Frame:
-    """Read a raw frame from a FITS file.
+    """Read a raw frame from a FITS file, a text spectrum or a camera image.
 
-    The file is opened read-only and closed before returning; it is never modified.
+    The reader is chosen by the suffix (:func:`~wavecal.frame_files.frame_file_kind`): ``.txt``,
+    ``.csv``, ``.dat`` are 1-D text spectra, ``.png``, ``.tif``, ``.tiff``, ``.bmp`` camera
+    images (:mod:`wavecal.frame_files`), anything else FITS. The file is opened read-only and
+    closed before returning; it is never modified.
 
     Parameters
     ----------
     path : str or Path
-        The FITS file.
+        The frame file.
     profile : InstrumentProfile
         The instrument: detector geometry, gain, read noise, saturation, header mapping.
     hdu : int or str, optional
@@ -152,8 +163,61 @@ def read_frame(path: str | Path, profile: InstrumentProfile, *, hdu: int | str |
     if not path.is_file():
         msg = f"{path}: file not found"
         raise FrameError(msg)
-    raw, header = read_image(path, hdu if hdu is not None else profile.detector.hdu)
-    return _build_frame(raw, header, profile, path=path, bias=bias, bad_pixels=bad_pixels)
+    kind = frame_file_kind(path)
+    if kind == "text":
+        raw = read_text_spectrum(path)
+    elif kind == "image":
+        raw = read_camera_image(path, profile.detector.saturation_adu)
+    else:
+        raw = RawFile(*read_image(path, hdu if hdu is not None else profile.detector.hdu))
+    return _build_frame(raw.data, raw.header, profile, path=path, bias=bias,
+                        bad_pixels=bad_pixels, saturated=raw.saturated,
+                        first_pixel=raw.first_pixel)
+
+
+def subtract_dark(frame: Frame, dark: Frame, profile: InstrumentProfile) -> Frame:
+    """``frame`` minus a matching dark frame (both read with the same profile).
+
+    The dark must have the frame's shape and, when both headers give an exposure time through
+    the profile's mapping (keyword present), the same exposure within
+    :data:`DARK_EXPOSURE_TOLERANCE`. Variances add; the dark's bad pixels become bad.
+
+    Raises
+    ------
+    FrameError
+        One line naming the dark and what differs.
+    """
+    if dark.shape != frame.shape or dark.origin != frame.origin or dark.binning != frame.binning:
+        msg = (f"{dark.path}: dark of shape {dark.shape[0]}x{dark.shape[1]} (binning "
+               f"{dark.binning[0]}x{dark.binning[1]}) does not match {frame.path} "
+               f"({frame.shape[0]}x{frame.shape[1]}, binning {frame.binning[0]}x{frame.binning[1]})")
+        raise FrameError(msg)
+    times = [_exposure(f, profile) for f in (frame, dark)]
+    if None not in times and abs(times[0] - times[1]) > DARK_EXPOSURE_TOLERANCE * max(times):
+        msg = (f"{dark.path}: dark exposure {times[1]:g} s differs from the {times[0]:g} s of "
+               f"{frame.path} by more than {100 * DARK_EXPOSURE_TOLERANCE:g} %")
+        raise FrameError(msg)
+    arrays = (frame.data - dark.data, frame.variance + dark.variance, frame.bad | dark.bad)
+    for array in arrays:
+        array.setflags(write=False)
+    return dataclasses.replace(frame, data=arrays[0], variance=arrays[1], bad=arrays[2])
+
+
+def _exposure(frame: Frame, profile: InstrumentProfile) -> float | None:
+    """The exposure time (s) a frame's header gives through the profile, None if it gives none
+    (a default of the profile's mapping is not a measured exposure)."""
+    spec = profile.header.get("exposure_time")
+    if spec is None or frame.header.get(spec.keyword) in (None, ""):
+        return None
+    value = frame.header[spec.keyword]
+    try:
+        seconds = float(value)
+    except (TypeError, ValueError):
+        seconds = math.nan
+    if not math.isfinite(seconds) or seconds < 0:
+        msg = f"{frame.path}: header keyword {spec.keyword!r} (exposure time) = {value!r} is not a time"
+        raise FrameError(msg)
+    return seconds
 
 
 def frame_from_array(data: np.ndarray, profile: InstrumentProfile, *,
@@ -339,7 +403,8 @@ def _is_image(hdu: Any) -> bool:
 
 def _build_frame(raw: np.ndarray, header: fits.Header, profile: InstrumentProfile, *,
                  path: Path | None, bias: np.ndarray | None,
-                 bad_pixels: np.ndarray | None = None) -> Frame:
+                 bad_pixels: np.ndarray | None = None, saturated: np.ndarray | None = None,
+                 first_pixel: int = 0) -> Frame:
     where = str(path) if path is not None else "<array>"
     while raw.ndim > 2 and raw.shape[0] == 1:
         raw = raw[0]
@@ -356,9 +421,10 @@ def _build_frame(raw: np.ndarray, header: fits.Header, profile: InstrumentProfil
     if raw.ndim == 1:
         adu, finite, saturated, origin, binning = _one_dimensional(adu, finite, profile, binning, bias,
                                                                    where)
+        origin = (origin[0], origin[1] + first_pixel)
         disp_axis = 1
     else:
-        saturated = finite & (adu >= det.saturation_adu)
+        saturated = finite & (adu >= det.saturation_level_adu if saturated is None else saturated)
         trim, overscan = _regions(adu.shape, det, binning, where)
         if bias is not None:
             level: np.ndarray | float = _cutout(np.asarray(bias, dtype=np.float32), adu.shape,

@@ -8,7 +8,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["GratingSpec", "CameraSpec", "DetectorSpec", "ApproximateSpec", "Priors", "GratingEntry"]
+__all__ = ["GratingSpec", "CameraSpec", "DetectorSpec", "ApproximateSpec", "Priors", "GratingEntry",
+           "FULL_SCALE_ADU"]
+
+#: Saturation level of a detector whose profile states none: the full scale of the 16-bit
+#: integers most FITS frames hold (2**16 - 1; common practice). Camera images use their own
+#: bit depth's full scale instead (:mod:`wavecal.frame_files`).
+FULL_SCALE_ADU = 65535.0
 
 
 @dataclass(frozen=True)
@@ -76,9 +82,11 @@ class DetectorSpec:
         numpy axis of the image along which wavelength changes: 1 = along a row (columns
         change, FITS NAXIS1), 0 = along a column (rows change, FITS NAXIS2).
     wavelength_increases : int
-        +1 if wavelength increases with pixel index along the dispersion axis, -1 otherwise.
-    saturation_adu : float
-        Level (raw ADU, before bias subtraction) at or above which a pixel is saturated.
+        +1 if wavelength increases with pixel index along the dispersion axis, -1 if it
+        decreases, 0 if unknown (``approximate`` profiles only: both directions are tried).
+    saturation_adu : float or None
+        Level (raw ADU, before bias subtraction) at or above which a pixel is saturated; None
+        when the profile states none (see :attr:`saturation_level_adu`).
     gain_e_per_adu, read_noise_e : float
         Conversion gain and read noise in electrons.
     overscan : tuple of int or None
@@ -105,7 +113,7 @@ class DetectorSpec:
     shape: tuple[int, int]
     dispersion_axis: int = 1
     wavelength_increases: int = 1
-    saturation_adu: float = 65535.0
+    saturation_adu: float | None = None
     gain_e_per_adu: float = 1.0
     read_noise_e: float = 5.0
     overscan: tuple[int, int, int, int] | None = None
@@ -115,6 +123,11 @@ class DetectorSpec:
     tilt_deg: float = 0.0
     hdu: int | str | None = None
     slit_rows: tuple[int, int] | None = None
+
+    @property
+    def saturation_level_adu(self) -> float:
+        """The stated saturation level, else :data:`FULL_SCALE_ADU` (16-bit full scale)."""
+        return FULL_SCALE_ADU if self.saturation_adu is None else float(self.saturation_adu)
 
     @property
     def dispersion_range(self) -> tuple[int, int]:

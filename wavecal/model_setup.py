@@ -125,7 +125,8 @@ def _effective_model(profile: InstrumentProfile, pixel_mm: float, axis_pixel: fl
         pixel_mm=pixel_mm,
         axis_pixel=axis_pixel,
         n_pixels=n_pixels,
-        direction=profile.detector.wavelength_increases,
+        # an unknown direction (0) starts as increasing; calibration tries both
+        direction=profile.detector.wavelength_increases or 1,
     )
 
 

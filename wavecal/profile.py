@@ -326,6 +326,15 @@ def _region(value: Any) -> tuple[int, int, int, int]:
     return (*rows, *cols)
 
 
+def _direction(value: Any) -> int:
+    """+1, -1, or "unknown" (read as 0; allowed for ``approximate`` profiles only)."""
+    if value == "unknown":
+        return 0
+    if isinstance(value, int) and not isinstance(value, bool) and value in (1, -1):
+        return int(value)
+    raise Invalid(f'must be 1, -1 or "unknown", got {validation.describe(value)}')
+
+
 def _hdu(value: Any) -> int | str:
     if isinstance(value, str) and value:
         return value
@@ -356,7 +365,7 @@ PROFILE_RULES: dict[str, dict[str, validation.Rule]] = {
     "detector": {"pixel_size_um": _POSITIVE,
                  "shape": Sequence(Integer(low=1), length=2, label="[rows, columns]"),
                  "dispersion_axis": Integer(choices=(0, 1)),
-                 "wavelength_increases": Integer(choices=(1, -1)),
+                 "wavelength_increases": _direction,
                  "saturation_adu": _POSITIVE, "gain_e_per_adu": _POSITIVE,
                  "read_noise_e": Real(low=0), "overscan": _region, "trim": _region,
                  "bias_adu": Real(), "axis_pixel": Real(), "tilt_deg": Real(low=-45, high=45),
@@ -452,8 +461,15 @@ def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>")
         grating, priors = gratings[0].grating, gratings[0].priors
     else:
         grating = _section(data, "grating", GratingSpec, src)
+    direction_stated = isinstance(data["detector"], dict) and "wavelength_increases" in data["detector"]
     detector = _section(data, "detector", DetectorSpec, src)
     _check_detector(detector, src)
+    if grating.mount == "approximate" and not direction_stated:
+        detector = dataclasses.replace(detector, wavelength_increases=0)  # unknown: both tried
+    elif grating.mount != "approximate" and detector.wavelength_increases == 0:
+        msg = (f'{src}: [detector] wavelength_increases = "unknown" is allowed only for mount '
+               f'"approximate" (a known geometry needs its direction: 1 or -1)')
+        raise ProfileError(msg)
 
     approximate = None
     if grating.mount == "approximate":

@@ -41,7 +41,8 @@ def _row_range(text: str) -> tuple[int, int]:
 
 def add_solve_arguments(solve: argparse.ArgumentParser) -> None:
     """Options of ``wavecal solve FRAME [FRAME ...] -p PROFILE``."""
-    solve.add_argument("frames", nargs="+", type=Path, help="raw arc FITS file(s)")
+    solve.add_argument("frames", nargs="+", type=Path,
+                       help="raw arc frame(s): FITS, text/CSV spectrum, or PNG/TIFF/BMP image")
     solve.add_argument("-p", "--profile", required=True,
                        help="instrument profile (TOML file, or the name of a bundled example)")
     solve.add_argument("-o", "--out", type=Path, default=Path("wavecal-output"),
@@ -59,6 +60,8 @@ def add_solve_arguments(solve: argparse.ArgumentParser) -> None:
                        help="skip the QA report (HTML with figures, and its JSON twin)")
     solve.add_argument("--no-slit", action="store_true",
                        help="do not follow the lines along the slit (one solution for all rows)")
+    solve.add_argument("--dark", type=Path,
+                       help="dark frame to subtract from every arc (same shape and exposure)")
 
 
 def add_demo_arguments(parser: argparse.ArgumentParser) -> None:
@@ -67,12 +70,15 @@ def add_demo_arguments(parser: argparse.ArgumentParser) -> None:
                         help="output folder (default: %(default)s)")
 
 
-def _read_arc(frame: Path, profile, rows: tuple[int, int] | None):
-    """Read an arc frame and check it can be calibrated with ``rows`` (command-line bounds)."""
-    from ..frames import read_frame
+def _read_arc(frame: Path, profile, rows: tuple[int, int] | None, dark: Path | None = None):
+    """Read an arc frame (minus ``dark``) and check it can be calibrated with ``rows``
+    (command-line bounds)."""
+    from ..frames import read_frame, subtract_dark
     from ..validation import MIN_DISPERSION_PIXELS
 
     arc = read_frame(frame, profile)
+    if dark is not None:
+        arc = subtract_dark(arc, read_frame(dark, profile), profile)
     n_disp = arc.data.shape[arc.dispersion_axis]
     if n_disp < MIN_DISPERSION_PIXELS:
         msg = (f"{frame}: {n_disp} pixel(s) along the dispersion; a wavelength solution needs at "
@@ -92,7 +98,7 @@ def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Sta
     from ..summary_text import format_summary
 
     start = time.perf_counter()
-    arc = _read_arc(frame, profile, getattr(args, "rows", None))
+    arc = _read_arc(frame, profile, getattr(args, "rows", None), getattr(args, "dark", None))
     with_report = not getattr(args, "no_report", False)
     # the report draws its own <stem>.residuals.png: do not draw it twice
     written = solve_and_write(arc, profile, out, stem=frame.name,

@@ -142,7 +142,7 @@ def flag_saturated(lines, image, bias, profile) -> pd.DataFrame:
     brightest = image.max(axis=0) / det.gain_e_per_adu + bias
     x = np.round(lines["x_true"].to_numpy()).astype(int)
     around = np.clip(x[:, None] + np.arange(-1, 2)[None, :], 0, len(brightest) - 1)
-    return lines.assign(saturated=brightest[around].max(axis=1) >= det.saturation_adu)
+    return lines.assign(saturated=brightest[around].max(axis=1) >= det.saturation_level_adu)
 
 
 def read_out(image, layout, profile, bias, hot, rng, cosmic_rays, dtype) -> np.ndarray:
@@ -160,8 +160,8 @@ def read_out(image, layout, profile, bias, hot, rng, cosmic_rays, dtype) -> np.n
     bias_map = level + ramp * (position[:, None] if along == 0 else position[None, :])
     adu = counts / det.gain_e_per_adu + bias_map
     if dtype == "float32":
-        return np.minimum(adu, det.saturation_adu).astype(np.float32)
-    top = min(det.saturation_adu, 65535.0)
+        return np.minimum(adu, det.saturation_level_adu).astype(np.float32)
+    top = min(det.saturation_level_adu, 65535.0)
     return np.clip(np.rint(adu), 0.0, top).astype(np.uint16)
 
 

@@ -91,7 +91,7 @@ def set_fluxes(lines, layout, width, truth, spatial, slit_rows, cont_shape, prof
     if len(boosts):
         top = np.argsort(np.where(pick, flux * peak, -1.0))[::-1][:len(boosts)]
         top = top[pick[top]]
-        wanted = ((det.saturation_adu - bias) * boosts[:len(top)] * det.gain_e_per_adu
+        wanted = ((det.saturation_level_adu - bias) * boosts[:len(top)] * det.gain_e_per_adu
                   / (peak[top] * spatial.max()))
         flux[top] = np.maximum(flux[top], wanted)
     signal = flux * peak * slit_share
