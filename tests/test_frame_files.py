@@ -306,8 +306,8 @@ def test_unknown_direction_finds_a_reversed_frame_and_pays_for_the_second_search
     # the same wavelengths, read from the other end
     np.testing.assert_allclose(found.model.wavelength(n - 1 - x), known.model.wavelength(x), atol=0.02)
     # two searches: twice the trials (to the rounding of the two searches' own counts)
-    assert found.statistics["log10_trials"] == pytest.approx(
-        known.statistics["log10_trials"] + np.log10(2.0), abs=0.05)
+    assert found.statistics.log10_trials == pytest.approx(
+        known.statistics.log10_trials + np.log10(2.0), abs=0.05)
 
 
 def test_solve_reads_a_csv_spectrum_and_subtracts_its_dark(tmp_path, capsys):

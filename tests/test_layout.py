@@ -26,7 +26,7 @@ STAGES = (
     ("line lists", ("linelists",)),
     ("profile", ("validation", "header_values", "instrument", "profile")),
     ("nominal model", ("model_setup",)),
-    ("frames", ("frames",)),
+    ("frames", ("frame_files", "frames")),
     ("extraction", ("extract",)),
     ("peaks", ("_line_fit", "_line_widths", "_peak_detect", "peak_table", "peaks")),
     ("features", ("features",)),
