@@ -36,11 +36,12 @@ from .peaks import find_peaks
 from .profile import InstrumentProfile
 from .refine import Refinement, refine_fit
 from .solution import Solution
+from .solution_prior import ReferencePrior, reference_note, reference_prior
 from .solution_records import FitStatistics, PhysicalParameters
 from .status import Status
 from .tracing import (MIN_SLIT_ROWS, SlitMeasurement, central_rows, follow_lines, profile_slit_rows,
                       refer_peaks, smeared, straighten)
-from .verdict import MIN_LINES_FAILED, Verdict, VerdictInputs, judge
+from .verdict import Verdict, VerdictInputs, judge
 
 __all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS"]
 
@@ -48,6 +49,8 @@ __all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS"]
 #: lines may name peaks that nothing else explains, but never count as evidence and are never
 #: fitted. Name one in ``lamps`` to use it as a lamp element.
 POSSIBLE_EXTRAS = ("H",)
+#: No line is dropped as unconfirmed from a fit of this many lines or fewer (each is needed).
+KEEP_ALL_LINES_UP_TO = 5
 
 
 @dataclass(frozen=True)
@@ -85,6 +88,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
                     min_snr: float = 5.0,
                     free_grooves: bool = False,
                     trace_slit: bool = True,
+                    reference: ReferencePrior | None = None,
                     details: bool = False) -> Solution | Calibration:
     """Find, identify and fit the lines of one arc frame.
 
@@ -111,6 +115,10 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         the line centres are referred to the slit's reference row (straightening the frame
         first if the lines are smeared in the sum) and the solution gives the wavelength at
         every pixel of the slit.
+    reference : ReferencePrior, optional
+        A previous good solution of the same setting (:func:`~wavecal.solution_prior.load_reference`):
+        its fit is the start model and the prior narrows to the drift it allows
+        (:func:`~wavecal.solution_prior.reference_prior`); the solution records it.
     details : bool
         Return a :class:`Calibration` with the intermediate products instead of the solution.
 
@@ -128,6 +136,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         raise ValueError(msg)
     nominal = nominal_model(profile, grating_angle_deg, frame.binning)
     box = prior_box(profile, nominal)
+    if reference is not None:
+        nominal, box = reference_prior(reference, nominal, box, medium=profile.medium, frame=where)
 
     spectrum, peaks, slit = _spectrum_and_peaks(frame, profile, rows, min_snr, trace_slit)
     table = _detections(peaks.table, min_snr, nominal.n_pixels)
@@ -149,7 +159,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         # resolve the list again where its lines really fall
         features = resolve_lines(in_range, ident.best.model, peaks.fwhm_at)
         refined = refine_fit(ident.best, box, table, features, fwhm,
-                             min_lines=MIN_LINES_FAILED, free_grooves=free_grooves,
+                             min_lines=KEEP_ALL_LINES_UP_TO, free_grooves=free_grooves,
                              extra_sigma_px=_slit_sigma(slit))
         verdict = (Verdict(Status.FAILED, ("too few lines identified",)) if refined is None
                    else judge(_verdict_inputs(refined, ident, box, fwhm)))
@@ -169,7 +179,9 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         lines=lines, parameters=parameters, statistics=statistics, covered_range_px=covered,
         frame=str(frame.path) if frame.path else None, profile=profile.name, lamps=tuple(lamps),
         dispersion_axis=profile.detector.dispersion_axis, software_version=__version__,
-        slit=shift)
+        slit=shift, notes=() if reference is None else (reference_note(reference),),
+        reference=None if reference is None else {"file": reference.path.name,
+                                                  "sha256": reference.sha256})
     if details:
         return Calibration(solution, spectrum, peaks, ident,
                            refined.fit if refined is not None else None, nominal, box, slit)
@@ -261,7 +273,8 @@ def _verdict_inputs(refined: Refinement, ident: Identification, box: PriorBox,
     """The facts the verdict weighs, from the refined fit and the identification."""
     fit, evidence, runner = refined.fit, refined.evidence, ident.runner_up
     return VerdictInputs(
-        n_used=fit.n_used, log10_chance=refined.log10_chance, log10_trials=ident.log10_trials,
+        n_used=fit.n_used, n_determined=float(np.sum(fit.leverage[fit.used])),
+        log10_chance=refined.log10_chance, log10_trials=ident.log10_trials,
         fit_success=fit.success, scatter_px=fit.scatter_px, fwhm_px=fwhm,
         ambiguous=ident.ambiguous, rival_log10_chance=runner.log10_chance if runner else None,
         prior_shifts=refined.prior_shifts, effective_geometry=box.effective,

@@ -103,6 +103,11 @@ class Solution:
     slit : SlitShift or None
         How line positions shift along the slit (see the module docstring); None for a
         single-row solution or when the slit was not traced.
+    notes : tuple of str
+        Plain-language facts about how the solution was made that are not verdict reasons
+        (e.g. that its prior came from a reference solution).
+    reference : dict or None
+        The reference solution whose fit was the prior: ``{"file": name, "sha256": hex}``.
     """
 
     status: Status
@@ -119,6 +124,8 @@ class Solution:
     dispersion_axis: int = 1
     software_version: str = ""
     slit: SlitShift | None = None
+    notes: tuple[str, ...] = ()
+    reference: dict[str, str] | None = None
 
     @property
     def reference_row(self) -> float | None:
@@ -262,6 +269,8 @@ class Solution:
             "covered_range_px": [jsonable(v) for v in self.covered_range_px],
             "model": None if self.model is None else _model_to_dict(self.model),
             "slit": None if self.slit is None else self.slit.to_dict(),
+            "notes": list(self.notes),
+            "reference": self.reference,
             "parameters": [{k: jsonable(v) for k, v in p.items()}
                            for p in parameters["parameters"]],
             "correlation": {"names": parameters["correlation"]["names"],
@@ -315,7 +324,8 @@ SOLUTION_RULES: dict[str, Rule] = {
     "covered_range_px": Sequence(_NUMBER_OR_NULL, length=2), "model": Optional(Table()),
     "slit": Optional(Table()), "parameters": Sequence(Table()), "correlation": Table(),
     "covariance": Optional(Sequence(Sequence(_NUMBER_OR_NULL))), "statistics": Table(),
-    "lines": Table(),
+    "lines": Table(), "notes": Sequence(Text()),
+    "reference": Optional(Table()),
 }
 _REQUIRED = ("status", "reasons", "medium", "model", "lines", "statistics", "covered_range_px")
 
@@ -361,6 +371,10 @@ def _checked(data: Any, path: Path) -> dict[str, Any]:
             msg = f"{path}: {name} is not {n} x {n} (one row and column per fitted parameter)"
             raise SolutionFileError(msg)
     data["correlation"] = corr
+    if data.get("reference") is not None:
+        data["reference"] = check_table(data["reference"], {"file": Text(), "sha256": Text()},
+                                        where=f"{where} reference", error=SolutionFileError,
+                                        required=("file", "sha256"))
     bad = [k for k, v in data["statistics"].items()
            if not (v is None or isinstance(v, (int, float, str, bool)))]
     if bad:
@@ -426,6 +440,8 @@ def load_solution(path: str | Path) -> Solution:
             dispersion_axis=data.get("dispersion_axis", 1),
             software_version=data.get("software_version", ""),
             slit=None if slit is None else SlitShift.from_dict(slit),
+            notes=tuple(data.get("notes", ())),
+            reference=None if data.get("reference") is None else dict(data["reference"]),
         )
     except (KeyError, TypeError, ValueError) as exc:
         msg = f"{path}: solution file is inconsistent: {exc}"
