@@ -7,7 +7,7 @@ import sys
 import time
 from pathlib import Path
 
-from ..errors import FrameError, WavecalError
+from ..errors import FrameError, SolutionFileError, WavecalError
 from ..status import ExitCode, Status, exit_code_for
 from ..validation import GRATING_ANGLE, Real, option_type
 
@@ -59,6 +59,12 @@ def add_solve_arguments(solve: argparse.ArgumentParser) -> None:
                        help="skip the QA report (HTML with figures, and its JSON twin)")
     solve.add_argument("--no-slit", action="store_true",
                        help="do not follow the lines along the slit (one solution for all rows)")
+    solve.add_argument("--reference", type=Path, metavar="SOLUTION.json",
+                       help="a previous good solution of the same setting: its fit is the prior "
+                            "and the search allows only the drift since")
+    solve.add_argument("--drift-px", type=option_type(Real(low=0, open_low=True)),
+                       dest="drift_px", help="largest shift of the lines since the reference "
+                                             "(pixels; default 5)")
 
 
 def add_demo_arguments(parser: argparse.ArgumentParser) -> None:
@@ -86,6 +92,19 @@ def _read_arc(frame: Path, profile, rows: tuple[int, int] | None):
     return arc
 
 
+def _reference(args: argparse.Namespace):
+    """The ``--reference`` solution as a prior (None without one)."""
+    from ..solution_prior import DRIFT_PX, load_reference
+
+    path = getattr(args, "reference", None)
+    drift = getattr(args, "drift_px", None)
+    if path is None:
+        if drift is not None:
+            raise SolutionFileError("--drift-px needs --reference SOLUTION.json")
+        return None
+    return load_reference(path, drift_px=DRIFT_PX if drift is None else drift)
+
+
 def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Status:
     """Solve and write one frame, print its summary; returns its status."""
     from ..solve import solve_and_write
@@ -103,7 +122,8 @@ def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Sta
                               rows=getattr(args, "rows", None),
                               min_snr=getattr(args, "min_snr", 5.0),
                               free_grooves=getattr(args, "fit_grooves", False),
-                              trace_slit=not getattr(args, "no_slit", False))
+                              trace_slit=not getattr(args, "no_slit", False),
+                              reference=_reference(args))
     elapsed = time.perf_counter() - start
     print(format_summary(written.solution))
     print(f"  written   : {written.solution_path}, {written.lines}"
