@@ -34,7 +34,7 @@ STAGES = (
     ("fit", ("fit", "refine")),
     ("determination", ("determination",)),
     ("verdict", ("verdict",)),
-    ("solution", ("slit_shift", "solution_records", "solution")),
+    ("solution", ("slit_shift", "solution_records", "solution", "solution_prior")),
     ("tracing", ("_trace_bands", "tracing")),
     ("calibration", ("assemble", "calibrate")),
     ("products", ("products", "summary_text")),
