@@ -69,7 +69,7 @@ def run_case(index: int, seed: int, folder: Path):
                  axis_error_px=float(rng.uniform(-0.8, 0.8) * pr.axis_pixel_px),
                  tilt_error_deg=float(rng.uniform(-0.5, 0.5) * pr.tilt_deg),
                  distortion_px=(0.0, 0.0, 0.0, 0.0))
-    angle = float(rng.uniform(8.0, 20.0))
+    angle = float(rng.uniform(12.0, 22.0))
     ref_arc = simulate_arc(profile, seed=rng, lamps="Ne+Ar", grating_angle_deg=angle, **truth)
     ref = calibrate_frame(frame_from_array(ref_arc.data, profile, header=ref_arc.header), profile,
                           trace_slit=False)
