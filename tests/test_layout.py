@@ -31,7 +31,7 @@ STAGES = (
     ("peaks", ("_line_fit", "_line_widths", "_peak_detect", "peak_table", "peaks")),
     ("features", ("features",)),
     ("identification", ("match",)),
-    ("fit", ("fit", "refine")),
+    ("fit", ("fit", "refine", "anchors")),
     ("determination", ("determination",)),
     ("verdict", ("verdict",)),
     ("solution", ("slit_shift", "solution_records", "solution", "solution_prior")),

@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from ._version import __version__
+from .anchors import Anchors, anchor_peaks, anchored_identification, found_lines_chance
 from .assemble import fit_statistics, line_table, physical_parameters, unidentified_lines
 from .extract import Spectrum, extract_spectrum
 from .features import resolve_lines
@@ -89,6 +90,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
                     free_grooves: bool = False,
                     trace_slit: bool = True,
                     reference: ReferencePrior | None = None,
+                    anchors: Anchors | None = None,
                     details: bool = False) -> Solution | Calibration:
     """Find, identify and fit the lines of one arc frame.
 
@@ -119,6 +121,11 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         A previous good solution of the same setting (:func:`~wavecal.solution_prior.load_reference`):
         its fit is the start model and the prior narrows to the drift it allows
         (:func:`~wavecal.solution_prior.reference_prior`); the solution records it.
+    anchors : Anchors, optional
+        Pixel/wavelength pairs named by the user (:func:`~wavecal.anchors.read_anchors`): the
+        identification starts from them instead of the blind search
+        (:func:`~wavecal.anchors.anchored_identification`); the significance counts only the
+        lines found besides them, and the solution's notes say how many came from the user.
     details : bool
         Return a :class:`Calibration` with the intermediate products instead of the solution.
 
@@ -148,9 +155,15 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     extra_list = load_line_list(extras, medium=profile.medium) if extras else None
     in_range = line_list.in_range(*_reachable_range(nominal, box))
     features = resolve_lines(in_range, nominal, peaks.fwhm_at)
-    ident = identify_lines(nominal, box, table["x"].to_numpy(float),
-                           features.lines.wavelength_nm, intensity=features.lines.intensity,
-                           vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
+    if anchors is None:
+        ident = identify_lines(nominal, box, table["x"].to_numpy(float),
+                               features.lines.wavelength_nm, intensity=features.lines.intensity,
+                               vote_weight=table["snr"].to_numpy(float), fwhm_px=fwhm)
+    else:
+        ident = anchored_identification(nominal, box, anchors, table["x"].to_numpy(float),
+                                        features.lines.wavelength_nm,
+                                        intensity=features.lines.intensity, fwhm_px=fwhm)
+    notes = () if reference is None else (reference_note(reference),)
 
     refined = None
     verdict = Verdict(Status.FAILED, ident.notes or ("no identification",))
@@ -161,6 +174,9 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         refined = refine_fit(ident.best, box, table, features, fwhm,
                              min_lines=KEEP_ALL_LINES_UP_TO, free_grooves=free_grooves,
                              extra_sigma_px=_slit_sigma(slit))
+        if refined is not None and anchors is not None:
+            refined, note = _anchored(refined, anchors, table, fwhm)
+            notes += (note,)
         verdict = (Verdict(Status.FAILED, ("too few lines identified",)) if refined is None
                    else judge(_verdict_inputs(refined, ident, box, fwhm)))
 
@@ -179,7 +195,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         lines=lines, parameters=parameters, statistics=statistics, covered_range_px=covered,
         frame=str(frame.path) if frame.path else None, profile=profile.name, lamps=tuple(lamps),
         dispersion_axis=profile.detector.dispersion_axis, software_version=__version__,
-        slit=shift, notes=() if reference is None else (reference_note(reference),),
+        slit=shift, notes=notes,
         reference=None if reference is None else {"file": reference.path.name,
                                                   "sha256": reference.sha256})
     if details:
@@ -266,6 +282,17 @@ def _reachable_range(model: GratingModel, box: PriorBox) -> tuple[float, float]:
             for a in (-dphi, dphi) for b in (-df, df)]
     lams = np.concatenate(lams)
     return float(np.nanmin(lams)), float(np.nanmax(lams))
+
+
+def _anchored(refined: Refinement, anchors: Anchors, table: pd.DataFrame,
+              fwhm: float) -> tuple[Refinement, str]:
+    """The refinement with its significance counting only the lines the tool found, and the
+    note saying how many lines came from the user."""
+    named = anchor_peaks(anchors, table["x"].to_numpy(float), fwhm)
+    log10_chance, n_user = found_lines_chance(refined, named)
+    note = (f"{n_user} of the {refined.fit.n_used} lines used were named by the user "
+            f"({anchors.path.name}); the significance counts only the others")
+    return dataclasses.replace(refined, log10_chance=log10_chance), note
 
 
 def _verdict_inputs(refined: Refinement, ident: Identification, box: PriorBox,
