@@ -152,7 +152,9 @@ def found_lines_chance(refined: Refinement, named: np.ndarray) -> tuple[float, i
     the used lines came from the user.
 
     The peaks the anchors name neither count as matches nor as chances: the significance is
-    that of the other lines under the anchored model, as after one search.
+    that of the other lines under the anchored model, as after one search, less the
+    coincidences the fit could buy by bending towards them (the sum of their leverages,
+    rounded up: what they, not the anchors and priors, determine).
     """
     fit, pairs = refined.fit, refined.pairs
     user = np.isin(pairs.peak, named[named >= 0])
@@ -160,8 +162,11 @@ def found_lines_chance(refined: Refinement, named: np.ndarray) -> tuple[float, i
     others = _not_named(refined.x.size, named)
     chance = coincidence_probabilities(fit.model, refined.x[others],
                                        refined.wavelength_nm, window)
+    # each found line could have pulled the model towards a chance coincidence by as much as
+    # its leverage: the sum of the found lines' leverages is the coincidences the fit can buy
+    bought = float(np.nansum(fit.leverage[~user & fit.used]))
     log10_p = chance_log10_probability(int(np.count_nonzero(~user)), chance,
-                                       n_free=2 + max(fit.distortion_degree - 2, 0))
+                                       n_free=int(math.ceil(bought - 1e-9)))
     return log10_p, int(np.count_nonzero(user & fit.used))
 
 

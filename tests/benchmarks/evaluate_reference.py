@@ -16,7 +16,9 @@ and 0-5e-4 in focal length, and one of three difficulties:
 - ``wide prior``: a profile whose grating-angle and focal-length priors are ten times wider,
   with 6-8 lines.
 
-It is solved blindly and with the reference. A frame is *right* when the verdict is not
+It is solved blindly, with the reference, and from three pixel/wavelength pairs (the three
+strongest listed lines, their true positions read to 0.3 px rms, as a user would off a plot;
+no reference). A frame is *right* when the verdict is not
 ``failed`` and the solution is within 0.25 px of the truth over the lines' range; a *wrong ok* is
 an ``ok`` solution off by more (must be 0).
 """
@@ -30,6 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
+from wavecal.anchors import read_anchors
 from wavecal.calibrate import calibrate_frame
 from wavecal.frames import frame_from_array
 from wavecal.profile import example_profile_paths, load_profile
@@ -57,7 +60,8 @@ def _listed_on_detector(arc) -> int:
 
 
 def run_case(index: int, seed: int, folder: Path):
-    """One case: (kind, n listed lines, blind (status, error), reference (status, error)) or
+    """One case: (kind, n listed lines, then (status, error) blind, with the reference and from
+    three anchors) or
     None when the rich reference frame itself was not solved ``ok`` or no hard frame with the
     difficulty's line count was drawn."""
     profile = load_profile(example_profile_paths()["tho_longslit"])
@@ -100,8 +104,25 @@ def run_case(index: int, seed: int, folder: Path):
     blind = calibrate_frame(frame, hard_profile, trace_slit=False)
     with_ref = calibrate_frame(frame, hard_profile, trace_slit=False,
                                reference=load_reference(ref_path))
+    anchored = calibrate_frame(frame, hard_profile, trace_slit=False,
+                               anchors=read_anchors(_write_anchors(hard, rng, folder, index)))
     return (kind, _listed_on_detector(hard), (blind.status, max_error(blind, hard)),
-            (with_ref.status, max_error(with_ref, hard)))
+            (with_ref.status, max_error(with_ref, hard)),
+            (anchored.status, max_error(anchored, hard)))
+
+
+def _write_anchors(arc, rng, folder: Path, index: int) -> Path:
+    """Three pairs: the strongest listed lines, their true positions read to 0.3 px rms."""
+    lines = arc.lines
+    usable = lines[lines["listed"] & ~lines["ghost"] & (lines["x_true"] > 5)
+                   & (lines["x_true"] < arc.truth.n_pixels - 5)]
+    chosen = usable.sort_values("snr", ascending=False).head(3)
+    path = folder / f"anchors{index:03d}.txt"
+    text = "# pixel  wavelength (nm)\n" + "".join(
+        f"{x + rng.normal(0.0, 0.3):.2f} {lam:.4f}\n"
+        for x, lam in zip(chosen["x_true"], chosen["wavelength_nm"]))
+    path.write_text(text)
+    return path
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -111,19 +132,19 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     rows = []
     print(f"{'case':>4} {'kind':<12} {'lines':>5}  {'blind':<8} {'err px':>7}  "
-          f"{'reference':<9} {'err px':>7}")
+          f"{'reference':<9} {'err px':>7}  {'anchors':<8} {'err px':>7}")
     with tempfile.TemporaryDirectory() as tmp:
         for index in range(args.n):
             row = run_case(index, args.seed, Path(tmp))
             if row is None:
                 print(f"{index:>4} (reference not solved ok, or no hard frame of that difficulty: skipped)")
                 continue
-            kind, n_lines, (b_status, b_err), (r_status, r_err) = row
+            kind, n_lines, (b_status, b_err), (r_status, r_err), (a_status, a_err) = row
             print(f"{index:>4} {kind:<12} {n_lines:>5}  {b_status:<8} {b_err:>7.3f}  "
-                  f"{r_status:<9} {r_err:>7.3f}", flush=True)
+                  f"{r_status:<9} {r_err:>7.3f}  {a_status:<8} {a_err:>7.3f}", flush=True)
             rows.append(row)
     print()
-    for label, col in (("blind", 2), ("reference", 3)):
+    for label, col in (("blind", 2), ("reference", 3), ("anchors", 4)):
         for kind in (*KINDS, "all"):
             sel = [r for r in rows if kind in ("all", r[0])]
             right = [r for r in sel if r[col][0] != "failed" and r[col][1] < RIGHT_PX]

@@ -65,6 +65,9 @@ def add_solve_arguments(solve: argparse.ArgumentParser) -> None:
     solve.add_argument("--drift-px", type=option_type(Real(low=0, open_low=True)),
                        dest="drift_px", help="largest shift of the lines since the reference "
                                              "(pixels; default 5)")
+    solve.add_argument("--anchors", type=Path, metavar="PAIRS.txt",
+                       help="a few known lines: a text file of pixel and wavelength (nm, in the "
+                            "profile's medium) pairs, one a line, '#' comments; at least three")
 
 
 def add_demo_arguments(parser: argparse.ArgumentParser) -> None:
@@ -105,6 +108,14 @@ def _reference(args: argparse.Namespace):
     return load_reference(path, drift_px=DRIFT_PX if drift is None else drift)
 
 
+def _anchors(args: argparse.Namespace):
+    """The ``--anchors`` pairs (None without them)."""
+    from ..anchors import read_anchors
+
+    path = getattr(args, "anchors", None)
+    return None if path is None else read_anchors(path)
+
+
 def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Status:
     """Solve and write one frame, print its summary; returns its status."""
     from ..solve import solve_and_write
@@ -123,7 +134,7 @@ def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Sta
                               min_snr=getattr(args, "min_snr", 5.0),
                               free_grooves=getattr(args, "fit_grooves", False),
                               trace_slit=not getattr(args, "no_slit", False),
-                              reference=_reference(args))
+                              reference=_reference(args), anchors=_anchors(args))
     elapsed = time.perf_counter() - start
     print(format_summary(written.solution))
     print(f"  written   : {written.solution_path}, {written.lines}"
