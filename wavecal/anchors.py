@@ -27,7 +27,7 @@ from .model_setup import PriorBox
 from .optics import GratingModel
 from .refine import Refinement
 
-__all__ = ["Anchors", "read_anchors", "anchored_identification", "anchor_peaks",
+__all__ = ["Anchors", "read_anchors", "anchored_identification", "anchor_peaks", "line_sources",
            "found_lines_chance", "MIN_ANCHORS", "ANCHOR_PIXEL_SIGMA_PX"]
 
 #: Fewest pairs a file must give: three fix position, scale and its change along the detector.
@@ -121,10 +121,22 @@ def anchored_identification(model: GratingModel, box: PriorBox, anchors: Anchors
     peaks and listed lines are paired under it at shrinking tolerances, each round refitted on
     the pairs found and the anchors. The hypothesis's significance counts only the pairs found
     (:func:`found_lines_chance`).
+
+    Raises
+    ------
+    AnchorFileError
+        When two pairs name the same detected peak.
     """
     x = np.asarray(x, float)
     lines_nm = np.asarray(lines_nm, float)
     named = anchor_peaks(anchors, x, fwhm_px)
+    taken = named[named >= 0]
+    if np.unique(taken).size < taken.size:
+        ordered = np.sort(taken)
+        twice = x[ordered[np.flatnonzero(np.diff(ordered) == 0)[0]]]
+        msg = (f"{anchors.path}: two pairs name the same peak, at pixel {twice:.1f} (pairs closer "
+               "than a line width)")
+        raise AnchorFileError(msg)
     ax = anchors.pixel.copy()
     ax[named >= 0] = x[named[named >= 0]]
     blend_px = blend_distance_px(fwhm_px)
@@ -168,6 +180,15 @@ def found_lines_chance(refined: Refinement, named: np.ndarray) -> tuple[float, i
     log10_p = chance_log10_probability(int(np.count_nonzero(~user)), chance,
                                        n_free=int(math.ceil(bought - 1e-9)))
     return log10_p, int(np.count_nonzero(user & fit.used))
+
+
+def line_sources(n_peaks: int, named: np.ndarray | None) -> np.ndarray:
+    """The line table's ``source`` column: ``"user"`` for a peak an anchor named, ``"search"``
+    for the others."""
+    source = np.full(n_peaks, "search", dtype=object)
+    if named is not None:
+        source[named[named >= 0]] = "user"
+    return source
 
 
 def _not_named(n: int, named: np.ndarray) -> np.ndarray:

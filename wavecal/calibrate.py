@@ -22,7 +22,8 @@ import numpy as np
 import pandas as pd
 
 from ._version import __version__
-from .anchors import Anchors, anchor_peaks, anchored_identification, found_lines_chance
+from .anchors import (Anchors, anchor_peaks, anchored_identification, found_lines_chance,
+                      line_sources)
 from .assemble import fit_statistics, line_table, physical_parameters, unidentified_lines
 from .extract import Spectrum, extract_spectrum
 from .features import resolve_lines
@@ -190,6 +191,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         lines = line_table(table, refined, features, line_list, extra_list, fwhm)
         parameters = physical_parameters(refined.fit, box)
         statistics = fit_statistics(refined, ident, box, features)
+    named = None if anchors is None else anchor_peaks(anchors, table["x"].to_numpy(float), fwhm)
+    lines = lines.assign(source=line_sources(len(lines), named))
     solution = Solution(
         status=verdict.status, reasons=verdict.reasons, medium=profile.medium, model=model,
         lines=lines, parameters=parameters, statistics=statistics, covered_range_px=covered,

@@ -63,7 +63,7 @@ STATUSES = tuple(s.value for s in (Status.OK, Status.SUSPECT, Status.FAILED))
 LINE_COLUMNS = (
     "x", "x_err", "fwhm", "flux", "snr", "flags",
     "identification", "element", "line_wavelength", "line_intensity", "line_verified",
-    "wavelength_fit", "residual_px", "residual_nm", "residual_kms", "sigma_px",
+    "wavelength_fit", "residual_px", "residual_nm", "residual_kms", "sigma_px", "source",
 )
 
 
@@ -294,7 +294,7 @@ def _model_to_dict(model: GratingModel) -> dict[str, Any]:
 
 
 #: Line columns that files written by earlier versions lack (read as empty).
-_NEWER_LINE_COLUMNS = ("sigma_px",)
+_NEWER_LINE_COLUMNS = ("sigma_px", "source")
 _FLOAT_LINE_COLUMNS = frozenset(("x", "x_err", "fwhm", "flux", "snr", "line_wavelength",
                                  "line_intensity", "wavelength_fit", "residual_px", "residual_nm",
                                  "residual_kms", "sigma_px"))
@@ -332,7 +332,7 @@ _REQUIRED = ("status", "reasons", "medium", "model", "lines", "statistics", "cov
 _LINE_RULES: dict[str, Rule] = {
     **{col: _NUMBER_OR_NULL for col in _FLOAT_LINE_COLUMNS}, "flags": Integer(low=0),
     "identification": Text(), "element": Optional(Text(empty=True)),
-    "line_verified": Optional(Boolean()),
+    "line_verified": Optional(Boolean()), "source": Optional(Text(empty=True)),
 }
 
 
@@ -422,7 +422,8 @@ def load_solution(path: str | Path) -> Solution:
         n_lines = len(data["lines"]["x"])
         lines = pd.DataFrame({col: (np.array(data["lines"].get(col, [None] * n_lines),
                                              dtype=float)  # None -> NaN
-                                    if col in _FLOAT_LINE_COLUMNS else list(data["lines"][col]))
+                                    if col in _FLOAT_LINE_COLUMNS
+                                    else list(data["lines"].get(col, [""] * n_lines)))
                               for col in LINE_COLUMNS})
         slit = data.get("slit")
         return Solution(

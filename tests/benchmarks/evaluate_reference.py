@@ -16,9 +16,9 @@ and 0-5e-4 in focal length, and one of three difficulties:
 - ``wide prior``: a profile whose grating-angle and focal-length priors are ten times wider,
   with 6-8 lines.
 
-It is solved blindly, with the reference, and from three pixel/wavelength pairs (the three
-strongest listed lines, their true positions read to 0.3 px rms, as a user would off a plot;
-no reference). A frame is *right* when the verdict is not
+It is solved blindly, with the reference, and from three pixel/wavelength pairs (the strongest
+listed line in each third of the detector, their true positions read to 0.3 px rms, as a user
+would off a plot; no reference). A frame is *right* when the verdict is not
 ``failed`` and the solution is within 0.25 px of the truth over the lines' range; a *wrong ok* is
 an ``ok`` solution off by more (must be 0).
 """
@@ -112,16 +112,24 @@ def run_case(index: int, seed: int, folder: Path):
 
 
 def _write_anchors(arc, rng, folder: Path, index: int) -> Path:
-    """Three pairs: the strongest listed lines, their true positions read to 0.3 px rms."""
+    """Three pairs as a user would name them: the strongest listed line in each third of the
+    detector (else the next strongest at least 20 px from those chosen), their true positions
+    read to 0.3 px rms."""
     lines = arc.lines
-    usable = lines[lines["listed"] & ~lines["ghost"] & (lines["x_true"] > 5)
-                   & (lines["x_true"] < arc.truth.n_pixels - 5)]
-    chosen = usable.sort_values("snr", ascending=False).head(3)
+    n = arc.truth.n_pixels
+    usable = lines[lines["listed"] & ~lines["ghost"] & (lines["snr"] >= 10) & (lines["x_true"] > 5)
+                   & (lines["x_true"] < n - 5)].sort_values("snr", ascending=False)
+    chosen = []
+    for third in range(3):
+        inside = usable[(usable["x_true"] >= third * n / 3) & (usable["x_true"] < (third + 1) * n / 3)]
+        if len(inside):
+            chosen.append((inside["x_true"].iloc[0], inside["wavelength_nm"].iloc[0]))
+    for x, lam in zip(usable["x_true"], usable["wavelength_nm"]):
+        if len(chosen) < 3 and all(abs(x - c[0]) > 20 for c in chosen):
+            chosen.append((x, lam))
     path = folder / f"anchors{index:03d}.txt"
-    text = "# pixel  wavelength (nm)\n" + "".join(
-        f"{x + rng.normal(0.0, 0.3):.2f} {lam:.4f}\n"
-        for x, lam in zip(chosen["x_true"], chosen["wavelength_nm"]))
-    path.write_text(text)
+    path.write_text("# pixel  wavelength (nm)\n" + "".join(
+        f"{x + rng.normal(0.0, 0.3):.2f} {lam:.4f}\n" for x, lam in chosen))
     return path
 
 
