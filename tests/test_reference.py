@@ -16,7 +16,7 @@ import pytest
 from wavecal.anchors import anchor_peaks, found_lines_chance, read_anchors
 from wavecal.calibrate import calibrate_frame
 from wavecal.cli.main import main
-from wavecal.errors import AnchorFileError, SolutionFileError
+from wavecal.errors import AnchorFileError, ProfileError, SolutionFileError
 from wavecal.features import resolve_lines
 from wavecal.linelists import load_line_list
 from wavecal.frames import frame_from_array
@@ -233,3 +233,22 @@ def test_solve_anchors_on_the_command_line(anchored, tmp_path, capsys):
     assert code in (ExitCode.OK, ExitCode.SUSPECT)
     written = load_solution(next(tmp_path.glob("*.solution.json")))
     assert (written.lines["source"] == "user").sum() == 3
+
+
+def test_a_profile_names_its_reference_relative_to_itself(setting, tmp_path):
+    _, _, ref_path, hard, hard_path = setting
+    folder = tmp_path / "instrument"
+    folder.mkdir()
+    (folder / "last-good.json").write_bytes(ref_path.read_bytes())
+    text = example_profile_paths()["tho_longslit"].read_text()
+    (folder / "mine.toml").write_text(text + '\n[reference]\nsolution = "last-good.json"\n'
+                                      "drift_px = 7\n")
+    profile = load_profile(folder / "mine.toml")
+    assert profile.reference.solution == folder / "last-good.json"
+    solution = calibrate_frame(hard_path, profile, trace_slit=False)
+    assert solution.reference["file"] == "last-good.json"
+    assert "shift by 7 px" in solution.notes[0]
+    assert _error(solution, hard) < RIGHT_PX
+    (folder / "bad.toml").write_text(text + '\n[reference]\nsolution = "x.json"\ndrift_px = -1\n')
+    with pytest.raises(ProfileError, match=r"bad\.toml: \[reference\] drift_px"):
+        load_profile(folder / "bad.toml")

@@ -38,7 +38,8 @@ from .peaks import find_peaks
 from .profile import InstrumentProfile
 from .refine import Refinement, refine_fit
 from .solution import Solution
-from .solution_prior import ReferencePrior, reference_note, reference_prior
+from .solution_prior import (ReferencePrior, reference_from_profile, reference_note,
+                             reference_prior)
 from .solution_records import FitStatistics, PhysicalParameters
 from .status import Status
 from .tracing import (MIN_SLIT_ROWS, SlitMeasurement, central_rows, follow_lines, profile_slit_rows,
@@ -119,7 +120,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         first if the lines are smeared in the sum) and the solution gives the wavelength at
         every pixel of the slit.
     reference : ReferencePrior, optional
-        A previous good solution of the same setting (:func:`~wavecal.solution_prior.load_reference`):
+        A previous good solution of the same setting (:func:`~wavecal.solution_prior.load_reference`;
+        default: the profile's ``[reference]``, if any):
         its fit is the start model and the prior narrows to the drift it allows
         (:func:`~wavecal.solution_prior.reference_prior`); the solution records it.
     anchors : Anchors, optional
@@ -144,6 +146,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         raise ValueError(msg)
     nominal = nominal_model(profile, grating_angle_deg, frame.binning)
     box = prior_box(profile, nominal)
+    if reference is None and profile.reference is not None:
+        reference = reference_from_profile(profile.reference)
     if reference is not None:
         nominal, box = reference_prior(reference, nominal, box, medium=profile.medium, frame=where)
 

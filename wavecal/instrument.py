@@ -7,8 +7,10 @@ Plain frozen dataclasses; :mod:`wavecal.profile` reads them from TOML and checks
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
-__all__ = ["GratingSpec", "CameraSpec", "DetectorSpec", "ApproximateSpec", "Priors", "GratingEntry"]
+__all__ = ["GratingSpec", "CameraSpec", "DetectorSpec", "ApproximateSpec", "Priors", "GratingEntry",
+           "ReferenceSpec"]
 
 
 @dataclass(frozen=True)
@@ -193,3 +195,22 @@ class GratingEntry:
     number: float
     grating: GratingSpec
     priors: Priors
+
+
+@dataclass(frozen=True)
+class ReferenceSpec:
+    """A previous good solution of the instrument's setting to use as every frame's prior
+    (``[reference]``; :mod:`wavecal.solution_prior`).
+
+    Attributes
+    ----------
+    solution : Path
+        The solution file (a relative path in the profile is relative to the profile's folder).
+    drift_px, stretch_fraction : float or None
+        Largest shift of the lines (pixels) and relative stretch of the scale since the
+        reference; None: the defaults of :mod:`wavecal.solution_prior`.
+    """
+
+    solution: Path
+    drift_px: float | None = None
+    stretch_fraction: float | None = None

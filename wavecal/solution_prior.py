@@ -14,7 +14,7 @@ for the search and the fit of a new frame:
 - the detector tilt stays within the reference's own uncertainty (at least
   :data:`TILT_FLOOR_DEG`, at most the profile's prior).
 
-The search then covers a few dozen hypotheses instead of hundreds of thousands, so that a few
+The search then covers about ten hypotheses instead of some ten thousand, so that a few
 lines are significant against the trials actually made. The verdict still judges the result
 on its own evidence.
 
@@ -36,12 +36,13 @@ from pathlib import Path
 import numpy as np
 
 from .errors import SolutionFileError
+from .instrument import ReferenceSpec
 from .model_setup import PriorBox
 from .optics import GratingModel
 from .solution import Solution, load_solution
 from .status import Status
 
-__all__ = ["ReferencePrior", "load_reference", "reference_prior", "reference_note", "DRIFT_PX",
+__all__ = ["ReferencePrior", "load_reference", "reference_from_profile", "reference_prior", "reference_note", "DRIFT_PX",
            "STRETCH_FRACTION", "AXIS_PIXEL_WIDTH_PX", "TILT_FLOOR_DEG"]
 
 #: Largest shift (pixels) of the lines since the reference that the search allows.
@@ -108,6 +109,16 @@ def load_reference(path: str | Path, *, drift_px: float = DRIFT_PX,
         raise SolutionFileError(msg)
     digest = hashlib.sha256(path.read_bytes()).hexdigest()
     return ReferencePrior(path, digest, solution, float(drift_px), float(stretch_fraction))
+
+
+def reference_from_profile(spec: ReferenceSpec, *, drift_px: float | None = None
+                           ) -> ReferencePrior:
+    """The profile's ``[reference]`` solution, with its drift and stretch (``drift_px``, when
+    given, overrides the profile's; unset ones take :data:`DRIFT_PX`, :data:`STRETCH_FRACTION`).
+    """
+    drift = next(v for v in (drift_px, spec.drift_px, DRIFT_PX) if v is not None)
+    stretch = STRETCH_FRACTION if spec.stretch_fraction is None else spec.stretch_fraction
+    return load_reference(spec.solution, drift_px=drift, stretch_fraction=stretch)
 
 
 def reference_prior(reference: ReferencePrior, nominal: GratingModel, blind: PriorBox, *,

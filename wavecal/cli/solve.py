@@ -61,7 +61,8 @@ def add_solve_arguments(solve: argparse.ArgumentParser) -> None:
                        help="do not follow the lines along the slit (one solution for all rows)")
     solve.add_argument("--reference", type=Path, metavar="SOLUTION.json",
                        help="a previous good solution of the same setting: its fit is the prior "
-                            "and the search allows only the drift since")
+                            "and the search allows only the drift since (default: the "
+                            "profile's [reference], if any)")
     solve.add_argument("--drift-px", type=option_type(Real(low=0, open_low=True)),
                        dest="drift_px", help="largest shift of the lines since the reference "
                                              "(pixels; default 5)")
@@ -95,17 +96,22 @@ def _read_arc(frame: Path, profile, rows: tuple[int, int] | None):
     return arc
 
 
-def _reference(args: argparse.Namespace):
-    """The ``--reference`` solution as a prior (None without one)."""
-    from ..solution_prior import DRIFT_PX, load_reference
+def _reference(args: argparse.Namespace, profile):
+    """The ``--reference`` solution as a prior, else the profile's ``[reference]`` with
+    ``--drift-px`` (None: the profile's own, if any, as it stands)."""
+    from ..instrument import ReferenceSpec
+    from ..solution_prior import reference_from_profile
 
     path = getattr(args, "reference", None)
     drift = getattr(args, "drift_px", None)
-    if path is None:
-        if drift is not None:
-            raise SolutionFileError("--drift-px needs --reference SOLUTION.json")
+    if path is not None:
+        return reference_from_profile(ReferenceSpec(path), drift_px=drift)
+    if drift is None:
         return None
-    return load_reference(path, drift_px=DRIFT_PX if drift is None else drift)
+    if profile.reference is None:
+        raise SolutionFileError("--drift-px needs --reference SOLUTION.json (or a [reference] "
+                                "in the profile)")
+    return reference_from_profile(profile.reference, drift_px=drift)
 
 
 def _anchors(args: argparse.Namespace):
@@ -134,7 +140,7 @@ def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Sta
                               min_snr=getattr(args, "min_snr", 5.0),
                               free_grooves=getattr(args, "fit_grooves", False),
                               trace_slit=not getattr(args, "no_slit", False),
-                              reference=_reference(args), anchors=_anchors(args))
+                              reference=_reference(args, profile), anchors=_anchors(args))
     elapsed = time.perf_counter() - start
     print(format_summary(written.solution))
     print(f"  written   : {written.solution_path}, {written.lines}"
