@@ -1,13 +1,12 @@
 """The verdict on a solution: ``ok``, ``suspect`` or ``failed``, from the evidence, in plain words.
 
-0. **Degrees of freedom.** The lines used must outnumber the quantities the data determine (the
-   trace of the fit's hat matrix, priors included) by :data:`MIN_SPARE_LINES_FAILED`: a check
-   needs lines left over. A tight prior (a previous solution of the same setting) determines
-   most of the model, so that a handful of lines can then be checked; a blind fit needs more.
-
 Whether a solution can be trusted follows from what the data show, not from how many lines it
 has or how much of the detector they cover:
 
+0. **Something left to check.** The lines used must outnumber the quantities they determine
+   (the trace of the fit's hat matrix, priors included) by :data:`MIN_SPARE_LINES_FAILED`. A
+   tight prior (a previous solution of the same setting) determines most of the model, so a
+   handful of lines can then be checked; a blind fit needs more.
 1. **Significance.** The identification must be far less likely to arise from chance
    coincidences with the line list than one in the number of hypotheses searched.
 2. **Uncertainty.** The solution's propagated 1-sigma uncertainty, everywhere between the
