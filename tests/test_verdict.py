@@ -13,9 +13,9 @@ from wavecal import match, verdict
 from wavecal.match import Hypothesis, Identification
 from wavecal.verdict import VerdictInputs, judge
 
-#: A solution every rule accepts: 40 lines, chance 10^-20 after 10^4 trials, 0.02 px (1 sigma),
+#: A solution every rule accepts: 40 lines determining 4 quantities, chance 10^-20 after 10^4 trials, 0.02 px (1 sigma),
 #: 0.02 px excess scatter on 3 px lines, 0.05 px leave-one-out move, parameters near nominal.
-GOOD = VerdictInputs(n_used=40, log10_chance=-20.0, log10_trials=4.0, fit_success=True,
+GOOD = VerdictInputs(n_used=40, n_determined=4.0, log10_chance=-20.0, log10_trials=4.0, fit_success=True,
                      max_sigma_px=0.02, scatter_px=0.02, fwhm_px=3.0, leave_one_out_px=0.05,
                      max_sigma_at_px=100.0, leave_one_out_at_px=200.0,
                      prior_shifts={"grating_angle_deg": 0.5})
@@ -23,8 +23,10 @@ GOOD = VerdictInputs(n_used=40, log10_chance=-20.0, log10_trials=4.0, fit_succes
 #: (changes to GOOD, expected status)
 CASES = [
     ({}, "ok"),
-    ({"n_used": 4}, "failed"),
-    ({"n_used": 6}, "ok"),
+    ({"n_used": 5}, "failed"),   # one line beyond the 4 quantities determined: nothing to check
+    ({"n_used": 7}, "ok"),       # three beyond them
+    ({"n_used": 5, "n_determined": 2.5}, "ok"),  # a tight prior determines more of the model
+    ({"n_determined": float("nan")}, "failed"),  # unknown: no claim that anything is left
     ({"log10_chance": -5.0}, "failed"),   # not 2 decades beyond the 10^4 trials
     ({"log10_chance": -7.0}, "suspect"),  # beyond 2 but not 6 decades
     ({"log10_chance": -9.0}, "suspect"),
@@ -41,7 +43,7 @@ CASES = [
     ({"fit_success": False}, "failed"),
     ({"ambiguous": True, "rival_log10_chance": -19.0}, "suspect"),
     # line counts and coverage are not grounds: six lines with a wide gap, judged on evidence
-    ({"n_used": 6, "largest_gap_fraction": 0.8}, "ok"),
+    ({"n_used": 7, "largest_gap_fraction": 0.8}, "ok"),
 ]
 
 #: (best, rival log10 chance, ambiguous?)
@@ -53,7 +55,7 @@ AMBIGUITY = [
 ]
 
 THRESHOLDS = [(verdict, name) for name in (
-    "MIN_LINES_FAILED", "SIGNIFICANCE_MARGIN_FAILED", "SIGNIFICANCE_MARGIN_OK", "MAX_SIGMA_PX_OK",
+    "MIN_SPARE_LINES_FAILED", "SIGNIFICANCE_MARGIN_FAILED", "SIGNIFICANCE_MARGIN_OK", "MAX_SIGMA_PX_OK",
     "MAX_SCATTER_FWHM_OK", "MAX_LEAVE_ONE_OUT_PX_OK", "MAX_PRIOR_SHIFT_OK")] + [
     (match, "AMBIGUITY_DECADES"), (match, "AMBIGUITY_FRACTION")]
 

@@ -22,6 +22,8 @@ import numpy as np
 import pandas as pd
 
 from ._version import __version__
+from .anchors import (Anchors, anchor_peaks, anchored_identification, found_lines_chance,
+                      line_sources)
 from .assemble import fit_statistics, line_table, physical_parameters, unidentified_lines
 from .extract import Spectrum, extract_spectrum
 from .features import resolve_lines
@@ -36,11 +38,13 @@ from .peaks import find_peaks
 from .profile import InstrumentProfile
 from .refine import Refinement, refine_fit
 from .solution import Solution
+from .solution_prior import (ReferencePrior, reference_from_profile, reference_note,
+                             reference_prior)
 from .solution_records import FitStatistics, PhysicalParameters
 from .status import Status
 from .tracing import (MIN_SLIT_ROWS, SlitMeasurement, central_rows, follow_lines, profile_slit_rows,
                       refer_peaks, smeared, straighten)
-from .verdict import MIN_LINES_FAILED, Verdict, VerdictInputs, judge
+from .verdict import Verdict, VerdictInputs, judge
 
 __all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS"]
 
@@ -48,6 +52,8 @@ __all__ = ["calibrate_frame", "Calibration", "POSSIBLE_EXTRAS"]
 #: lines may name peaks that nothing else explains, but never count as evidence and are never
 #: fitted. Name one in ``lamps`` to use it as a lamp element.
 POSSIBLE_EXTRAS = ("H",)
+#: No line is dropped as unconfirmed from a fit of this many lines or fewer (each is needed).
+KEEP_ALL_LINES_UP_TO = 5
 
 
 @dataclass(frozen=True)
@@ -85,6 +91,8 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
                     min_snr: float = 5.0,
                     free_grooves: bool = False,
                     trace_slit: bool = True,
+                    reference: ReferencePrior | None = None,
+                    anchors: Anchors | None = None,
                     details: bool = False) -> Solution | Calibration:
     """Find, identify and fit the lines of one arc frame.
 
@@ -111,6 +119,16 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         the line centres are referred to the slit's reference row (straightening the frame
         first if the lines are smeared in the sum) and the solution gives the wavelength at
         every pixel of the slit.
+    reference : ReferencePrior, optional
+        A previous good solution of the same setting (:func:`~wavecal.solution_prior.load_reference`;
+        default: the profile's ``[reference]``, if any):
+        its fit is the start model and the prior narrows to the drift it allows
+        (:func:`~wavecal.solution_prior.reference_prior`); the solution records it.
+    anchors : Anchors, optional
+        Pixel/wavelength pairs named by the user (:func:`~wavecal.anchors.read_anchors`): the
+        identification starts from them instead of the blind search
+        (:func:`~wavecal.anchors.anchored_identification`); the significance counts only the
+        lines found besides them, and the solution's notes say how many came from the user.
     details : bool
         Return a :class:`Calibration` with the intermediate products instead of the solution.
 
@@ -129,6 +147,10 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         raise ValueError(msg)
     nominal = nominal_model(profile, grating_angle_deg, frame.binning)
     box = prior_box(profile, nominal)
+    if reference is None and profile.reference is not None:
+        reference = reference_from_profile(profile.reference)
+    if reference is not None:
+        nominal, box = reference_prior(reference, nominal, box, medium=profile.medium, frame=where)
 
     spectrum, peaks, slit = _spectrum_and_peaks(frame, profile, rows, min_snr, trace_slit)
     table = _detections(peaks.table, min_snr, nominal.n_pixels)
@@ -137,9 +159,17 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     line_list = load_line_list(lamps, medium=profile.medium)
     extras = tuple(e for e in POSSIBLE_EXTRAS if e not in {lamp.capitalize() for lamp in lamps})
     extra_list = load_line_list(extras, medium=profile.medium) if extras else None
-    nominal, in_range, ident = _identify(
-        nominal, box, line_list, table["x"].to_numpy(float), table["snr"].to_numpy(float), peaks,
-        fwhm, both_directions=profile.detector.wavelength_increases == 0)
+    if anchors is None:
+        nominal, in_range, ident = _identify(
+            nominal, box, line_list, table["x"].to_numpy(float), table["snr"].to_numpy(float),
+            peaks, fwhm, both_directions=profile.detector.wavelength_increases == 0)
+    else:
+        in_range = line_list.in_range(*_reachable_range(nominal, box))
+        features = resolve_lines(in_range, nominal, peaks.fwhm_at)
+        ident = anchored_identification(nominal, box, anchors, table["x"].to_numpy(float),
+                                        features.lines.wavelength_nm,
+                                        intensity=features.lines.intensity, fwhm_px=fwhm)
+    notes = () if reference is None else (reference_note(reference),)
 
     refined = None
     verdict = Verdict(Status.FAILED, ident.notes or ("no identification",))
@@ -148,8 +178,11 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         # resolve the list again where its lines really fall
         features = resolve_lines(in_range, ident.best.model, peaks.fwhm_at)
         refined = refine_fit(ident.best, box, table, features, fwhm,
-                             min_lines=MIN_LINES_FAILED, free_grooves=free_grooves,
+                             min_lines=KEEP_ALL_LINES_UP_TO, free_grooves=free_grooves,
                              extra_sigma_px=_slit_sigma(slit))
+        if refined is not None and anchors is not None:
+            refined, note = _anchored(refined, anchors, table, fwhm)
+            notes += (note,)
         verdict = (Verdict(Status.FAILED, ("too few lines identified",)) if refined is None
                    else judge(_verdict_inputs(refined, ident, box, fwhm)))
 
@@ -163,12 +196,16 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
         lines = line_table(table, refined, features, line_list, extra_list, fwhm)
         parameters = physical_parameters(refined.fit, box)
         statistics = fit_statistics(refined, ident, box, features)
+    named = None if anchors is None else anchor_peaks(anchors, table["x"].to_numpy(float), fwhm)
+    lines = lines.assign(source=line_sources(len(lines), named))
     solution = Solution(
         status=verdict.status, reasons=verdict.reasons, medium=profile.medium, model=model,
         lines=lines, parameters=parameters, statistics=statistics, covered_range_px=covered,
         frame=str(frame.path) if frame.path else None, profile=profile.name, lamps=tuple(lamps),
         dispersion_axis=profile.detector.dispersion_axis, software_version=__version__,
-        slit=shift, grating=profile.grating_name)
+        slit=shift, grating=profile.grating_name, notes=notes,
+        reference=None if reference is None else {"file": reference.path.name,
+                                                  "sha256": reference.sha256})
     if details:
         return Calibration(solution, spectrum, peaks, ident,
                            refined.fit if refined is not None else None, nominal, box, slit)
@@ -291,12 +328,24 @@ def _reachable_range(model: GratingModel, box: PriorBox) -> tuple[float, float]:
     return float(np.nanmin(lams)), float(np.nanmax(lams))
 
 
+def _anchored(refined: Refinement, anchors: Anchors, table: pd.DataFrame,
+              fwhm: float) -> tuple[Refinement, str]:
+    """The refinement with its significance counting only the lines the tool found, and the
+    note saying how many lines came from the user."""
+    named = anchor_peaks(anchors, table["x"].to_numpy(float), fwhm)
+    log10_chance, n_user = found_lines_chance(refined, named)
+    note = (f"{n_user} of the {refined.fit.n_used} lines used were named by the user "
+            f"({anchors.path.name}); the significance counts only the others")
+    return dataclasses.replace(refined, log10_chance=log10_chance), note
+
+
 def _verdict_inputs(refined: Refinement, ident: Identification, box: PriorBox,
                     fwhm: float) -> VerdictInputs:
     """The facts the verdict weighs, from the refined fit and the identification."""
     fit, evidence, runner = refined.fit, refined.evidence, ident.runner_up
     return VerdictInputs(
-        n_used=fit.n_used, log10_chance=refined.log10_chance, log10_trials=ident.log10_trials,
+        n_used=fit.n_used, n_determined=float(np.sum(fit.leverage[fit.used])),
+        log10_chance=refined.log10_chance, log10_trials=ident.log10_trials,
         fit_success=fit.success, scatter_px=fit.scatter_px, fwhm_px=fwhm,
         ambiguous=ident.ambiguous, rival_log10_chance=runner.log10_chance if runner else None,
         prior_shifts=refined.prior_shifts, effective_geometry=box.effective,

@@ -1,7 +1,8 @@
 """Exceptions raised for bad input, each naming the file and the problem."""
 from __future__ import annotations
 
-__all__ = ["WavecalError", "ProfileError", "HeaderError", "FrameError", "SolutionFileError"]
+__all__ = ["WavecalError", "ProfileError", "HeaderError", "FrameError", "SolutionFileError",
+           "AnchorFileError"]
 
 
 class WavecalError(Exception):
@@ -21,6 +22,10 @@ class HeaderError(WavecalError, KeyError):
 
 class FrameError(WavecalError, ValueError):
     """A FITS frame cannot be read or holds no usable image data."""
+
+
+class AnchorFileError(WavecalError, ValueError):
+    """A file of user-given pixel/wavelength pairs is unreadable or malformed."""
 
 
 class SolutionFileError(WavecalError, ValueError):

@@ -7,9 +7,10 @@ Plain frozen dataclasses; :mod:`wavecal.profile` reads them from TOML and checks
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
 __all__ = ["GratingSpec", "CameraSpec", "DetectorSpec", "ApproximateSpec", "Priors", "GratingEntry",
-           "FULL_SCALE_ADU"]
+           "FULL_SCALE_ADU", "ReferenceSpec"]
 
 #: Saturation level of a detector whose profile states none: the full scale of the 16-bit
 #: integers most FITS frames hold (2**16 - 1; common practice). Camera images use their own
@@ -206,3 +207,22 @@ class GratingEntry:
     number: float
     grating: GratingSpec
     priors: Priors
+
+
+@dataclass(frozen=True)
+class ReferenceSpec:
+    """A previous good solution of the instrument's setting to use as every frame's prior
+    (``[reference]``; :mod:`wavecal.solution_prior`).
+
+    Attributes
+    ----------
+    solution : Path
+        The solution file (a relative path in the profile is relative to the profile's folder).
+    drift_px, stretch_fraction : float or None
+        Largest shift of the lines (pixels) and relative stretch of the scale since the
+        reference; None: the defaults of :mod:`wavecal.solution_prior`.
+    """
+
+    solution: Path
+    drift_px: float | None = None
+    stretch_fraction: float | None = None

@@ -349,8 +349,7 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
     phi_samples = np.linspace(lo, hi, 48)
     wide = np.ones(2 * _CHANCE_WINDOW_BINS + 1)
     inside = np.ones(n_bins)  # bins of the neighbourhood that exist (fewer at the range's ends)
-    neighbours = np.maximum(np.convolve(inside, wide, mode="same")
-                            - np.convolve(inside, np.ones(3), mode="same"), 1.0)
+    neighbours = np.maximum(_centred_sum(inside, wide) - _centred_sum(inside, np.ones(3)), 1.0)
     found = []
     for tau in tilts:
         for f in focal:
@@ -367,7 +366,7 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
             cast[b + 1, peak] = True
             cell = cast[:-2] | cast[1:-1] | cast[2:]
             votes = np.count_nonzero(cell, axis=1).astype(float)
-            around = np.convolve(raw, wide, mode="same") - np.convolve(raw, np.ones(3), mode="same")
+            around = _centred_sum(raw, wide) - _centred_sum(raw, np.ones(3))
             expected = np.maximum(3.0 * around / neighbours, 0.5)
             score = -stats.poisson.logsf(votes - 1, expected)
             top = np.argpartition(score, -3)[-3:] if score.size > 3 else np.arange(score.size)
@@ -386,6 +385,13 @@ def _candidates(model: GratingModel, box: PriorBox, x: np.ndarray, lines_nm: np.
             break
     n_trials = n_bins * focal.size * tilts.size / 3.0
     return chosen, float(np.log10(max(n_trials, 1.0)))
+
+
+def _centred_sum(values: np.ndarray, kernel: np.ndarray) -> np.ndarray:
+    """Sum of ``values`` over a centred window (``kernel``, odd length) at every index, as long
+    as ``values`` even when the window is longer (a narrow search of a few angle bins)."""
+    half = (kernel.size - 1) // 2
+    return np.convolve(values, kernel, mode="full")[half:half + values.size]
 
 
 def _distinct(model: GratingModel, signature: np.ndarray, other: np.ndarray,

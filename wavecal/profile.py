@@ -36,6 +36,7 @@ from .instrument import (
     GratingEntry,
     GratingSpec,
     Priors,
+    ReferenceSpec,
 )
 from .validation import (
     Choice,
@@ -130,6 +131,8 @@ class InstrumentProfile:
         empty for a one-grating profile and for a profile whose grating has been chosen.
     grating_name : str or None
         Name of the chosen grating; None for a one-grating profile or before choosing.
+    reference : ReferenceSpec or None
+        A previous solution to use as every frame's prior (``[reference]``).
     """
 
     name: str
@@ -145,6 +148,7 @@ class InstrumentProfile:
     source: Path | None = None
     gratings: tuple[GratingEntry, ...] = ()
     grating_name: str | None = None
+    reference: ReferenceSpec | None = None
 
     @property
     def configuration_key(self) -> str:
@@ -377,6 +381,8 @@ PROFILE_RULES: dict[str, dict[str, validation.Rule]] = {
     "priors": {"grating_angle_deg": _POSITIVE, "focal_length_fraction": Real(low=0, high=1,
                                                                              open_low=True),
                "axis_pixel_px": _POSITIVE, "tilt_deg": _POSITIVE},
+    "reference": {"solution": Text(), "drift_px": _POSITIVE,
+                  "stretch_fraction": Real(low=0, high=0.5, open_low=True)},
 }
 
 def _header_default(value: Any) -> str | int | float:
@@ -490,6 +496,9 @@ def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>")
         camera = _section(data, "camera", CameraSpec, src)
         data.pop("approximate", None)
 
+    reference = _section(data, "reference", ReferenceSpec, src) if "reference" in data else None
+    if reference is not None:
+        reference = dataclasses.replace(reference, solution=Path(src).parent / reference.solution)
     header = _header_fields(data.pop("header", {}), src)
     if grating.mount != "approximate" and "grating_angle" not in header:
         msg = f"{src}: [header] must map 'grating_angle' (give a default for a fixed grating)"
@@ -511,6 +520,7 @@ def profile_from_dict(data: dict[str, Any], *, source: str | Path = "<profile>")
         sensitivity_nm=inst.get("sensitivity_nm"),
         source=Path(src) if src != "<profile>" else None,
         gratings=gratings,
+        reference=reference,
     )
 
 

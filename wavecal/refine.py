@@ -149,7 +149,7 @@ def refine_fit(best: Hypothesis, box: PriorBox, table: pd.DataFrame, features: R
         Typical line width (pixels).
     min_lines : int
         No line is dropped as unconfirmed from a fit that uses this many lines or fewer (the
-        verdict's :data:`~wavecal.verdict.MIN_LINES_FAILED`).
+        calibration's :data:`~wavecal.calibrate.KEEP_ALL_LINES_UP_TO`).
     free_grooves : bool
         Also fit the groove density.
     extra_sigma_px : callable, optional

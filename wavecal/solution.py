@@ -64,7 +64,7 @@ STATUSES = tuple(s.value for s in (Status.OK, Status.SUSPECT, Status.FAILED))
 LINE_COLUMNS = (
     "x", "x_err", "fwhm", "flux", "snr", "flags",
     "identification", "element", "line_wavelength", "line_intensity", "line_verified",
-    "wavelength_fit", "residual_px", "residual_nm", "residual_kms", "sigma_px",
+    "wavelength_fit", "residual_px", "residual_nm", "residual_kms", "sigma_px", "source",
 )
 
 
@@ -106,6 +106,11 @@ class Solution:
     slit : SlitShift or None
         How line positions shift along the slit (see the module docstring); None for a
         single-row solution or when the slit was not traced.
+    notes : tuple of str
+        Plain-language facts about how the solution was made that are not verdict reasons
+        (e.g. that its prior came from a reference solution).
+    reference : dict or None
+        The reference solution whose fit was the prior: ``{"file": name, "sha256": hex}``.
     """
 
     status: Status
@@ -123,6 +128,8 @@ class Solution:
     software_version: str = ""
     slit: SlitShift | None = None
     grating: str | None = None
+    notes: tuple[str, ...] = ()
+    reference: dict[str, str] | None = None
 
     @property
     def reference_row(self) -> float | None:
@@ -279,6 +286,8 @@ class Solution:
             "covered_range_px": [jsonable(v) for v in self.covered_range_px],
             "model": None if self.model is None else _model_to_dict(self.model),
             "slit": None if self.slit is None else self.slit.to_dict(),
+            "notes": list(self.notes),
+            "reference": self.reference,
             "parameters": [{k: jsonable(v) for k, v in p.items()}
                            for p in parameters["parameters"]],
             "correlation": {"names": parameters["correlation"]["names"],
@@ -304,7 +313,7 @@ def _model_to_dict(model: GratingModel) -> dict[str, Any]:
 
 
 #: Line columns that files written by earlier versions lack (read as empty).
-_NEWER_LINE_COLUMNS = ("sigma_px",)
+_NEWER_LINE_COLUMNS = ("sigma_px", "source")
 _FLOAT_LINE_COLUMNS = frozenset(("x", "x_err", "fwhm", "flux", "snr", "line_wavelength",
                                  "line_intensity", "wavelength_fit", "residual_px", "residual_nm",
                                  "residual_kms", "sigma_px"))
@@ -335,14 +344,15 @@ SOLUTION_RULES: dict[str, Rule] = {
     "covered_range_px": Sequence(_NUMBER_OR_NULL, length=2), "model": Optional(Table()),
     "slit": Optional(Table()), "parameters": Sequence(Table()), "correlation": Table(),
     "covariance": Optional(Sequence(Sequence(_NUMBER_OR_NULL))), "statistics": Table(),
-    "lines": Table(),
+    "lines": Table(), "notes": Sequence(Text()),
+    "reference": Optional(Table()),
 }
 _REQUIRED = ("status", "reasons", "medium", "model", "lines", "statistics", "covered_range_px")
 
 _LINE_RULES: dict[str, Rule] = {
     **{col: _NUMBER_OR_NULL for col in _FLOAT_LINE_COLUMNS}, "flags": Integer(low=0),
     "identification": Text(), "element": Optional(Text(empty=True)),
-    "line_verified": Optional(Boolean()),
+    "line_verified": Optional(Boolean()), "source": Optional(Text(empty=True)),
 }
 
 
@@ -381,6 +391,10 @@ def _checked(data: Any, path: Path) -> dict[str, Any]:
             msg = f"{path}: {name} is not {n} x {n} (one row and column per fitted parameter)"
             raise SolutionFileError(msg)
     data["correlation"] = corr
+    if data.get("reference") is not None:
+        data["reference"] = check_table(data["reference"], {"file": Text(), "sha256": Text()},
+                                        where=f"{where} reference", error=SolutionFileError,
+                                        required=("file", "sha256"))
     bad = [k for k, v in data["statistics"].items()
            if not (v is None or isinstance(v, (int, float, str, bool)))]
     if bad:
@@ -428,7 +442,8 @@ def load_solution(path: str | Path) -> Solution:
         n_lines = len(data["lines"]["x"])
         lines = pd.DataFrame({col: (np.array(data["lines"].get(col, [None] * n_lines),
                                              dtype=float)  # None -> NaN
-                                    if col in _FLOAT_LINE_COLUMNS else list(data["lines"][col]))
+                                    if col in _FLOAT_LINE_COLUMNS
+                                    else list(data["lines"].get(col, [""] * n_lines)))
                               for col in LINE_COLUMNS})
         slit = data.get("slit")
         return Solution(
@@ -447,6 +462,8 @@ def load_solution(path: str | Path) -> Solution:
             software_version=data.get("software_version", ""),
             slit=None if slit is None else SlitShift.from_dict(slit),
             grating=data.get("grating"),  # files written before gratings had names: None
+            notes=tuple(data.get("notes", ())),
+            reference=None if data.get("reference") is None else dict(data["reference"]),
         )
     except (KeyError, TypeError, ValueError) as exc:
         msg = f"{path}: solution file is inconsistent: {exc}"

@@ -30,6 +30,8 @@ def format_summary(solution: Solution) -> str:
     out.append(f"  verdict   : {solution.status.upper()}")
     for reason in solution.reasons:
         out.append(f"              - {reason}")
+    for note in solution.notes:
+        out.append(f"  note      : {note}")
     stats = solution.statistics
     ident = solution.lines["identification"].value_counts() if len(solution.lines) else {}
     out.append(f"  lamps     : {'+'.join(solution.lamps)}   profile: {solution.profile}")

@@ -3,6 +3,10 @@
 Whether a solution can be trusted follows from what the data show, not from how many lines it
 has or how much of the detector they cover:
 
+0. **Something left to check.** The lines used must outnumber the quantities they determine
+   (the trace of the fit's hat matrix, priors included) by :data:`MIN_SPARE_LINES_FAILED`. A
+   tight prior (a previous solution of the same setting) determines most of the model, so a
+   handful of lines can then be checked; a blind fit needs more.
 1. **Significance.** The identification must be far less likely to arise from chance
    coincidences with the line list than one in the number of hypotheses searched.
 2. **Uncertainty.** The solution's propagated 1-sigma uncertainty, everywhere between the
@@ -23,12 +27,15 @@ from dataclasses import dataclass, field
 
 from .status import Status
 
-__all__ = ["Verdict", "judge", "VerdictInputs", "MIN_LINES_FAILED", "SIGNIFICANCE_MARGIN_FAILED",
+__all__ = ["Verdict", "judge", "VerdictInputs", "MIN_SPARE_LINES_FAILED", "SIGNIFICANCE_MARGIN_FAILED",
            "SIGNIFICANCE_MARGIN_OK", "MAX_SIGMA_PX_OK", "MAX_SCATTER_FWHM_OK",
            "MAX_LEAVE_ONE_OUT_PX_OK", "MAX_PRIOR_SHIFT_OK"]
 
-#: Fewer lines used than this: the physical model is not determined by the data at all.
-MIN_LINES_FAILED = 5
+#: Lines used minus the number of quantities the data determine (sum of the lines' leverages)
+#: below this: nothing is left to check the model with. Two: the smallest number of residuals
+#: whose agreement is a test at all (one spare line can always be absorbed by a model bending
+#: towards it within its prior).
+MIN_SPARE_LINES_FAILED = 2.0
 #: log10 chance probability must be below -(log10 trials + margin) for a solution at all ...
 SIGNIFICANCE_MARGIN_FAILED = 2.0
 #: ... and below -(log10 trials + this margin) for an ``ok``.
@@ -54,6 +61,9 @@ class VerdictInputs:
     ----------
     n_used : int
         Lines in the final fit.
+    n_determined : float
+        Quantities the data determine: the trace of the fit's hat matrix over the lines used
+        (the sum of their leverages; :attr:`wavecal.fit.FitResult.leverage`). NaN when unknown.
     log10_chance, log10_trials : float
         Chance probability of the identification and the number of hypotheses searched.
     rival_log10_chance : float or None
@@ -83,6 +93,7 @@ class VerdictInputs:
     """
 
     n_used: int
+    n_determined: float
     log10_chance: float
     log10_trials: float
     fit_success: bool
@@ -120,8 +131,11 @@ def judge(facts: VerdictInputs) -> Verdict:
     doubts: list[str] = []
     threshold_failed = -(facts.log10_trials + SIGNIFICANCE_MARGIN_FAILED)
     threshold_ok = -(facts.log10_trials + SIGNIFICANCE_MARGIN_OK)
-    if facts.n_used < MIN_LINES_FAILED:
-        failed.append(f"too few lines identified ({facts.n_used}; at least {MIN_LINES_FAILED} needed)")
+    spare = facts.n_used - facts.n_determined
+    if not spare >= MIN_SPARE_LINES_FAILED:
+        failed.append(f"too few lines identified ({facts.n_used} for the {facts.n_determined:.1f} "
+                      f"quantities they determine; at least {MIN_SPARE_LINES_FAILED:g} more "
+                      "needed to check them)")
     if facts.log10_chance > threshold_failed:
         failed.append("the identification is no better than chance coincidences with the line list "
                       f"(chance probability 10^{facts.log10_chance:.1f} after "

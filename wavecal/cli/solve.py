@@ -7,7 +7,7 @@ import sys
 import time
 from pathlib import Path
 
-from ..errors import FrameError, WavecalError
+from ..errors import FrameError, SolutionFileError, WavecalError
 from ..status import ExitCode, Status, exit_code_for
 from ..validation import GRATING_ANGLE, Real, option_type
 
@@ -62,6 +62,16 @@ def add_solve_arguments(solve: argparse.ArgumentParser) -> None:
                        help="do not follow the lines along the slit (one solution for all rows)")
     solve.add_argument("--dark", type=Path,
                        help="dark frame to subtract from every arc (same shape and exposure)")
+    solve.add_argument("--reference", type=Path, metavar="SOLUTION.json",
+                       help="a previous good solution of the same setting: its fit is the prior "
+                            "and the search allows only the drift since (default: the "
+                            "profile's [reference], if any)")
+    solve.add_argument("--drift-px", type=option_type(Real(low=0, open_low=True)),
+                       dest="drift_px", help="largest shift of the lines since the reference "
+                                             "(pixels; default 5)")
+    solve.add_argument("--anchors", type=Path, metavar="PAIRS.txt",
+                       help="a few known lines: a text file of pixel and wavelength (nm, in the "
+                            "profile's medium) pairs, one a line, '#' comments; at least three")
 
 
 def add_demo_arguments(parser: argparse.ArgumentParser) -> None:
@@ -92,6 +102,32 @@ def _read_arc(frame: Path, profile, rows: tuple[int, int] | None, dark: Path | N
     return arc
 
 
+def _reference(args: argparse.Namespace, profile):
+    """The ``--reference`` solution as a prior, else the profile's ``[reference]`` with
+    ``--drift-px`` (None: the profile's own, if any, as it stands)."""
+    from ..instrument import ReferenceSpec
+    from ..solution_prior import reference_from_profile
+
+    path = getattr(args, "reference", None)
+    drift = getattr(args, "drift_px", None)
+    if path is not None:
+        return reference_from_profile(ReferenceSpec(path), drift_px=drift)
+    if drift is None:
+        return None
+    if profile.reference is None:
+        raise SolutionFileError("--drift-px needs --reference SOLUTION.json (or a [reference] "
+                                "in the profile)")
+    return reference_from_profile(profile.reference, drift_px=drift)
+
+
+def _anchors(args: argparse.Namespace):
+    """The ``--anchors`` pairs (None without them)."""
+    from ..anchors import read_anchors
+
+    path = getattr(args, "anchors", None)
+    return None if path is None else read_anchors(path)
+
+
 def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Status:
     """Solve and write one frame, print its summary; returns its status."""
     from ..solve import solve_and_write
@@ -109,7 +145,8 @@ def _solve_one(frame: Path, profile, args: argparse.Namespace, out: Path) -> Sta
                               rows=getattr(args, "rows", None),
                               min_snr=getattr(args, "min_snr", 5.0),
                               free_grooves=getattr(args, "fit_grooves", False),
-                              trace_slit=not getattr(args, "no_slit", False))
+                              trace_slit=not getattr(args, "no_slit", False),
+                              reference=_reference(args, profile), anchors=_anchors(args))
     elapsed = time.perf_counter() - start
     print(format_summary(written.solution))
     print(f"  written   : {written.solution_path}, {written.lines}"
