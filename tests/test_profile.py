@@ -6,7 +6,8 @@ from astropy.io import fits
 
 from wavecal.errors import HeaderError, ProfileError
 from wavecal.model_setup import nominal_model, prior_box, unbinned_to_binned
-from wavecal.profile import example_profile_paths, load_profile, parse_lamps
+from wavecal.profile import example_profile_paths, load_profile
+from wavecal.validation import parse_lamps
 
 
 def test_bundled_examples_cover_the_required_mounts():

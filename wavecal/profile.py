@@ -59,7 +59,6 @@ __all__ = [
     "PROFILE_RULES",
     "load_profile",
     "example_profile_paths",
-    "parse_lamps",
     "profile_from_dict",
 ]
 
@@ -284,33 +283,12 @@ class InstrumentProfile:
                     return self.lamps
                 raise
             try:
-                return parse_lamps(str(raw))
+                return validation.parse_lamps(str(raw))
             except Invalid as exc:
                 where = f"{path}: " if path is not None else ""
                 msg = f"{where}header keyword {self.header['lamps'].keyword!r}: {exc}"
                 raise HeaderError(msg) from None
         return self.lamps
-
-
-def parse_lamps(text: str) -> tuple[str, ...]:
-    """Element symbols named in a free-text lamp description, in order of appearance.
-
-    Words are element symbols, run together or not ("HgAr", "Hg+Ar", "ne, xe"), element names
-    ("neon") or words that name no lamp ("lamp", "none" ...); see
-    :func:`wavecal.validation.parse_lamps`.
-
-    >>> parse_lamps("HgAr + Ne")
-    ('Hg', 'Ar', 'Ne')
-    >>> parse_lamps("none")
-    ()
-
-    Raises
-    ------
-    ValueError
-        For an unknown word or an element without a shipped line list (the message lists the
-        known ones).
-    """
-    return validation.parse_lamps(text)
 
 
 def _span(value: Any) -> tuple[int, int]:

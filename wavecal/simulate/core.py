@@ -15,7 +15,8 @@ from dataclasses import replace
 import numpy as np
 
 from ..linelists import load_line_list
-from ..profile import InstrumentProfile, parse_lamps
+from ..profile import InstrumentProfile
+from ..validation import parse_lamps
 from .arc import SimulatedArc
 from .camera import CameraGeometry
 from .detector import (Layout, draw_bias, draw_hot_pixels, flag_saturated, frame_binning,
