@@ -23,9 +23,11 @@ GOOD = VerdictInputs(n_used=40, n_determined=4.0, log10_chance=-20.0, log10_tria
 #: (changes to GOOD, expected status)
 CASES = [
     ({}, "ok"),
-    ({"n_used": 5}, "failed"),   # one line beyond the 4 quantities determined: nothing to check
-    ({"n_used": 7}, "ok"),       # three beyond them
-    ({"n_used": 5, "n_determined": 2.5}, "ok"),  # a tight prior determines more of the model
+    ({"n_used": 4}, "failed"),   # no line beyond the 4 quantities determined: nothing to check
+    ({"n_used": 4, "n_determined": 3.5}, "failed"),  # half a line beyond them
+    ({"n_used": 5}, "ok"),       # one beyond them: a residual that can be tested
+    ({"n_used": 7, "n_determined": 4.0}, "ok"),  # three beyond them
+    ({"n_used": 4, "n_determined": 2.5}, "ok"),  # a tight prior determines more of the model
     ({"n_determined": float("nan")}, "failed"),  # unknown: no claim that anything is left
     ({"log10_chance": -5.0}, "failed"),   # not 2 decades beyond the 10^4 trials
     ({"log10_chance": -7.0}, "suspect"),  # beyond 2 but not 6 decades

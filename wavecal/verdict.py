@@ -32,10 +32,11 @@ __all__ = ["Verdict", "judge", "VerdictInputs", "MIN_SPARE_LINES_FAILED", "SIGNI
            "MAX_LEAVE_ONE_OUT_PX_OK", "MAX_PRIOR_SHIFT_OK"]
 
 #: Lines used minus the number of quantities the data determine (sum of the lines' leverages)
-#: below this: nothing is left to check the model with. Two: the smallest number of residuals
-#: whose agreement is a test at all (one spare line can always be absorbed by a model bending
-#: towards it within its prior).
-MIN_SPARE_LINES_FAILED = 2.0
+#: below this: nothing is left to check the model with. One: the fewest residuals beyond the
+#: determined quantities whose agreement can be tested at all (a chi-square of one degree of
+#: freedom); for a blind fit of the four physical parameters this is the former fixed count of
+#: five lines.
+MIN_SPARE_LINES_FAILED = 1.0
 #: log10 chance probability must be below -(log10 trials + margin) for a solution at all ...
 SIGNIFICANCE_MARGIN_FAILED = 2.0
 #: ... and below -(log10 trials + this margin) for an ``ok``.
