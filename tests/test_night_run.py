@@ -161,7 +161,7 @@ def test_output_names_never_come_from_headers(tmp_path):
 def test_joint_fit_shares_the_optics_and_follows_the_drift(result, night):
     # the simulator moves the whole spectrum by the injected camera-axis shift, so the joint
     # shifts of one configuration differ as the truth does; four arcs share one focal length,
-    # which they determine better together than one arc alone (precisions add)
+    # which they determine better together than one arc alone (precisions add: common practice)
     arcs = pd.read_csv(result.out_dir / "joint_arcs.csv")
     shared = pd.read_csv(result.out_dir / "joint_shared.csv")
     assert len(arcs) == 8 and arcs["in_joint"].all()

@@ -159,16 +159,10 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
     line_list = load_line_list(lamps, medium=profile.medium)
     extras = tuple(e for e in POSSIBLE_EXTRAS if e not in {lamp.capitalize() for lamp in lamps})
     extra_list = load_line_list(extras, medium=profile.medium) if extras else None
-    if anchors is None:
-        nominal, in_range, ident = _identify(
-            nominal, box, line_list, table["x"].to_numpy(float), table["snr"].to_numpy(float),
-            peaks, fwhm, both_directions=profile.detector.wavelength_increases == 0)
-    else:
-        in_range = line_list.in_range(*_reachable_range(nominal, box))
-        features = resolve_lines(in_range, nominal, peaks.fwhm_at)
-        ident = anchored_identification(nominal, box, anchors, table["x"].to_numpy(float),
-                                        features.lines.wavelength_nm,
-                                        intensity=features.lines.intensity, fwhm_px=fwhm)
+    nominal, in_range, ident = _identify(
+        nominal, box, line_list, table["x"].to_numpy(float), table["snr"].to_numpy(float), peaks,
+        fwhm, anchors=anchors,
+        both_directions=anchors is None and profile.detector.wavelength_increases == 0)
     notes = () if reference is None else (reference_note(reference),)
 
     refined = None
@@ -273,10 +267,11 @@ def _slit_sigma(slit: SlitMeasurement | None) -> Callable[[np.ndarray], np.ndarr
 
 # -- identification and verdict -------------------------------------------------------------
 def _identify(nominal: GratingModel, box: PriorBox, line_list: LineList, x: np.ndarray,
-              snr: np.ndarray, peaks: PeakTable, fwhm: float, *,
+              snr: np.ndarray, peaks: PeakTable, fwhm: float, *, anchors: Anchors | None,
               both_directions: bool) -> tuple[GratingModel, LineList, Identification]:
-    """The blind identification (:func:`~wavecal.match.identify_lines`) of the listed lines
-    reachable within the prior box, resolved at the frame's line width.
+    """The identification of the listed lines reachable within the prior box, resolved at the
+    frame's line width: the blind search (:func:`~wavecal.match.identify_lines`), or the one
+    started from the user's ``anchors`` (:func:`~wavecal.anchors.anchored_identification`).
 
     With ``both_directions`` (a rough profile that does not say which way wavelength
     increases) it is run for either direction and the more significant identification is
@@ -291,10 +286,14 @@ def _identify(nominal: GratingModel, box: PriorBox, line_list: LineList, x: np.n
     for direction in (1, -1) if both_directions else (nominal.direction,):
         model = nominal.with_parameters(direction=direction)
         in_range = line_list.in_range(*_reachable_range(model, box))
-        features = resolve_lines(in_range, model, peaks.fwhm_at)
-        tried.append((model, in_range, identify_lines(
-            model, box, x, features.lines.wavelength_nm, intensity=features.lines.intensity,
-            vote_weight=snr, fwhm_px=fwhm)))
+        lines = resolve_lines(in_range, model, peaks.fwhm_at).lines
+        if anchors is None:
+            ident = identify_lines(model, box, x, lines.wavelength_nm, intensity=lines.intensity,
+                                   vote_weight=snr, fwhm_px=fwhm)
+        else:
+            ident = anchored_identification(model, box, anchors, x, lines.wavelength_nm,
+                                            intensity=lines.intensity, fwhm_px=fwhm)
+        tried.append((model, in_range, ident))
     if len(tried) == 1:
         return tried[0]
     tried.sort(key=lambda t: t[2].best.log10_chance if t[2].best is not None else math.inf)

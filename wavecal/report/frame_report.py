@@ -62,6 +62,7 @@ def frame_facts(solution: Solution) -> dict[str, Any]:
                        "large_shift": bool(math.isfinite(p.shift_sigma)
                                            and abs(p.shift_sigma) > LARGE_SHIFT_SIGMA)})
     counts = solution.lines["identification"].astype(str).value_counts().to_dict()
+    determination = solution.determination  # derived from the fit: computed once here
     return {"schema": "wavecal-frame-report", "schema_version": 1,
             **solution.summary(),
             "identification_counts": {k: int(v) for k, v in sorted(counts.items())},
@@ -69,8 +70,8 @@ def frame_facts(solution: Solution) -> dict[str, Any]:
             "correlation": {"names": list(solution.parameters.names),
                             "matrix": jsonable(np.asarray(solution.parameters.correlation,
                                                            dtype=float))},
-            "determination": jsonable(solution.determination.to_dict()),
-            "determination_in_words": list(solution.determination.sentences()),
+            "determination": jsonable(determination.to_dict()),
+            "determination_in_words": list(determination.sentences()),
             "software_version": solution.software_version}
 
 
