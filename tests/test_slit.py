@@ -473,3 +473,69 @@ def test_the_shift_uncertainty_matches_the_scatter_of_refits():
     spread = np.std(np.array(shifts), axis=0)
     assert len(shifts) > 50
     np.testing.assert_allclose(predicted, spread, rtol=0.35, atol=2e-3)
+
+
+def test_saturated_lines_are_followed_by_their_wings():
+    # Issue 12: saturated lines take part, their centres from the wings. On a tall slit on a
+    # detector rotated by 1 degree, the brightest lines up to 6 times the full well are followed
+    # along the slit like the others, and the tilt found is the rotation's.
+    profile = _tall_slit_profile()
+    sim = simulate_arc(profile, seed=3, lamps="Ne", detector_rotation_deg=1.0, saturate=6,
+                       saturation_boost=(3.0, 6.0))
+    clipped = sim.lines[sim.lines["saturated"]]["x_true"].to_numpy(float)
+    assert clipped.size >= 4
+    frame = frame_from_array(sim.data, profile, header=sim.header)
+    spectrum = extract_spectrum(frame)
+    measured = _measure_slit(frame, spectrum, find_peaks(spectrum), min_snr=5.0)
+    traces, shift = measured.traces, measured.shift
+    assert shift is not None
+    followed = traces.x_start[traces.good.sum(axis=1) >= traces.good.shape[1] // 2]
+    near = np.abs(followed[:, None] - clipped[None, :]).min(axis=0) < 3.0
+    assert near.sum() >= clipped.size // 2  # (close pairs of lines are not followed)
+    middle = float(np.median(clipped))
+    step = shift.shift(middle, shift.reference_row + 100.0) - shift.shift(middle,
+                                                                            shift.reference_row)
+    assert step / 100.0 == pytest.approx(np.tan(np.radians(1.0)), rel=0.03)
+
+
+def test_faint_lines_on_a_tall_slit_are_followed():
+    # The lines worth following are those a band of rows can measure: their signal-to-noise
+    # ratio in the central band, scaled to a band's rows, must reach the band threshold. On a
+    # faint 1000-row arc few lines reach a fixed S/N of 10 in the central band; they are
+    # followed all the same and the whole slit is right.
+    profile = _tall_slit_profile()
+    sim = simulate_arc(profile, seed=8, lamps="Ne", detector_rotation_deg=0.8, peak_snr=60.0)
+    frame = frame_from_array(sim.data, profile, header=sim.header)
+    spectrum = extract_spectrum(frame)
+    middle = sum(spectrum.rows) // 2
+    band = find_peaks(extract_spectrum(frame, rows=(middle - 16, middle + 16))).table
+    fixed = np.count_nonzero(band["snr"] >= 10)  # what a fixed threshold would follow
+    assert fixed < 3
+    measured = _measure_slit(frame, spectrum, find_peaks(spectrum), min_snr=5.0)
+    assert np.count_nonzero(measured.traces.good.sum(axis=1) > 0) > fixed
+    solution = solve(sim)
+    assert solution.slit is not None and solution.status != "failed"
+    assert np.max(np.abs(slit_errors(solution, sim))) < 0.25
+
+
+def test_larger_slit_models_measure_the_degree_choice():
+    # a shift that changes along the dispersion, traced on lines that cover only the middle of
+    # the detector: the criterion may keep the shift the same at every x, and the model with
+    # one more degree along x shows how far that choice could be off at the ends
+    rng = np.random.default_rng(12)
+    lines = np.array([400.0, 450.0, 500.0, 550.0, 600.0])
+    t = np.linspace(-1.0, 1.0, 16)
+    true = 3.0 * t[None, :] * (1.0 + 0.02 * (lines[:, None] - 500.0) / 100.0)
+    x = lines[:, None] + true + rng.normal(0.0, 0.05, true.shape)
+    traces = LineTraces(x_start=lines, traced=np.ones(lines.size, bool), y=50.0 + 50.0 * t,
+                        band_edges=np.stack([50.0 * t + 48.0, 50.0 * t + 52.0], axis=1),
+                        x=x, x_err=np.full(x.shape, 0.05), good=np.ones(x.shape, bool),
+                        reference_row=50.0, rows=(0, 100), row_weight=np.ones(101),
+                        x_domain=(0.0, 1023.0), fwhm=3.0)
+    shift = fit_slit_shift(traces)
+    assert len(shift.larger) >= 1
+    inner = shift.degree_move_px(np.linspace(400.0, 600.0, 9), np.linspace(0.0, 100.0, 9))
+    outer = shift.degree_move_px(np.linspace(0.0, 1023.0, 9), np.linspace(0.0, 100.0, 9))
+    assert outer > 2.0 * inner
+    # true shift at the detector's ends differs from the middle's by 3 * 0.02 * 5 = 0.3 px
+    assert outer > 0.1

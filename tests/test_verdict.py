@@ -39,6 +39,17 @@ CASES = [
     ({"scatter_px": 0.6}, "suspect"),     # 0.2 of it
     ({"leave_one_out_px": 0.1}, "ok"),
     ({"leave_one_out_px": 0.5}, "suspect"),
+    # an effective geometry has no physics to hold the model's shape: two neighbouring lines
+    # that only confirm each other are doubtful; a known geometry's physics confirms them
+    ({"leave_pair_out_px": 0.1, "effective_geometry": True}, "ok"),
+    ({"leave_pair_out_px": 0.5, "effective_geometry": True}, "suspect"),
+    ({"leave_pair_out_px": float("inf"), "effective_geometry": True}, "suspect"),
+    ({"leave_pair_out_px": 0.5}, "ok"),
+    ({"distortion_move_px": 0.04}, "ok"),
+    ({"distortion_move_px": 0.16}, "suspect"),  # a distortion the lines cannot pin down
+    ({"slit_move_px": 0.04}, "ok"),
+    ({"slit_move_px": 0.16}, "suspect"),        # nor the shape of the shift along the slit
+    ({"untraced_slit_rows": 300}, "suspect"),   # a tall slit whose lines were not followed
     ({"prior_shifts": {"tilt_deg": 1.5}}, "ok"),
     ({"prior_shifts": {"tilt_deg": 6.0}}, "suspect"),
     ({"prior_shifts": {"tilt_deg": 6.0}, "effective_geometry": True}, "ok"),
@@ -58,7 +69,8 @@ AMBIGUITY = [
 
 THRESHOLDS = [(verdict, name) for name in (
     "MIN_SPARE_LINES_FAILED", "SIGNIFICANCE_MARGIN_FAILED", "SIGNIFICANCE_MARGIN_OK", "MAX_SIGMA_PX_OK",
-    "MAX_SCATTER_FWHM_OK", "MAX_LEAVE_ONE_OUT_PX_OK", "MAX_PRIOR_SHIFT_OK")] + [
+    "MAX_SCATTER_FWHM_OK", "MAX_LEAVE_ONE_OUT_PX_OK", "MAX_MODEL_MOVE_PX_OK",
+    "MAX_PRIOR_SHIFT_OK")] + [
     (match, "AMBIGUITY_DECADES"), (match, "AMBIGUITY_FRACTION")]
 
 
@@ -94,6 +106,22 @@ def test_reasons_give_their_numbers():
         "the largest stretch without a line is 45% of the detector",
         "leaving out the line at pixel 1500 moves the solution by 0.70 px: it rests on that "
         "one line; the largest stretch without a line is 45% of the detector")
+
+
+def test_model_and_slit_reasons_give_their_numbers():
+    reasons = judge(dataclasses.replace(GOOD, leave_pair_out_px=1.234, effective_geometry=True,
+                                        leave_pair_out_at_px=(52.9, 135.8),
+                                        distortion_move_px=0.21, slit_move_px=0.45,
+                                        untraced_slit_rows=879)).reasons
+    assert reasons == (
+        "leaving out the neighbouring lines at pixels 53 and 136 together moves the solution "
+        "by 1.23 px: it rests on those two lines, which only confirm each other",
+        "one more term of the camera distortion moves the solution by 0.21 px (0.125 allowed): "
+        "the lines do not pin down its shape",
+        "one more term of the slit model moves the shift along the slit by 0.45 px (0.125 "
+        "allowed): the lines followed along the slit do not pin down its shape",
+        "the lines could not be followed along the 879 summed rows of the slit: how the "
+        "solution changes along it is not measured")
 
 
 @pytest.mark.parametrize("module, name", THRESHOLDS, ids=[n for _, n in THRESHOLDS])

@@ -17,14 +17,14 @@ from ._line_fit import FWHM_PER_SIGMA, fit_windows
 from .frames import Frame
 from .slit_shift import fit_shift_model
 
-__all__ = ["FLOOR_PX", "SpatialFirst", "TraceState", "follow", "split_bands"]
+__all__ = ["FLOOR_PX", "MIN_BAND_SNR", "SpatialFirst", "TraceState", "follow", "split_bands"]
 
 #: At most this many bands along the slit.
 _MAX_BANDS = 32
 #: Fewest rows in a band.
 _MIN_BAND_ROWS = 3
 #: Smallest signal-to-noise ratio of a band measurement that counts.
-_MIN_BAND_SNR = 4.0
+MIN_BAND_SNR = 4.0
 #: Floor (pixels) added in quadrature to each band centre's uncertainty in the model fit.
 FLOOR_PX = 0.01
 #: Pixels deviating from their band's median by more than this many standard deviations (plus
@@ -40,8 +40,8 @@ class SpatialFirst:
 
     def __init__(self, frame: Frame) -> None:
         flip = frame.dispersion_axis == 0
-        self.data, self.variance, self.bad = ((a.T if flip else a)
-                                              for a in (frame.data, frame.variance, frame.bad))
+        self.data, self.variance, self.bad, self.saturated = (
+            (a.T if flip else a) for a in (frame.data, frame.variance, frame.bad, frame.saturated))
         self.n_rows, self.n_disp = self.data.shape
         self.x0 = int(frame.origin[frame.dispersion_axis])
         self.y0 = int(frame.origin[1 - frame.dispersion_axis])
@@ -183,17 +183,20 @@ class TraceState:
         self.row_flux[li[:, None].repeat(rows.shape[1], axis=1)[keep_rows], rows[keep_rows]] = \
             flux[keep_rows]
         profile, variance, usable = block.profile(weight)
-        peak = _locate(profile, usable, centre - first, reach)
-        take = peak[:, None] + np.arange(-half, half + 1)
+        plateau = _plateau(block.saturated.any(axis=1), centre - first, reach + half)
+        clipped = np.isfinite(plateau)
+        peak = np.where(clipped, np.round(np.where(clipped, plateau, 0.0)).astype(int),
+                        _locate(profile, usable, centre - first, reach))
+        take = np.clip(peak[:, None] + np.arange(-half, half + 1), 0, profile.shape[1] - 1)
         y = np.take_along_axis(profile, take, axis=1)
         var = np.take_along_axis(variance, take, axis=1)
         use = np.take_along_axis(usable, take, axis=1)
-        fit = fit_windows(y, var, use, _refine(y, half), fwhm / FWHM_PER_SIGMA,
-                          (0.15, y.shape[1] / 2.0))
+        start = np.where(clipped, half + np.where(clipped, plateau, 0.0) - peak, _refine(y, half))
+        fit = fit_windows(y, var, use, start, fwhm / FWHM_PER_SIGMA, (0.15, y.shape[1] / 2.0))
         offset = first + peak - half
         n_use = use.sum(axis=1)
         sigma_ok = (fit.sigma * FWHM_PER_SIGMA >= 0.5) & (fit.sigma < 0.6 * half)
-        accept = (fit.ok & (n_use >= 6) & (fit.flux > _MIN_BAND_SNR * fit.flux_err)
+        accept = (fit.ok & (n_use >= 6) & (fit.flux > MIN_BAND_SNR * fit.flux_err)
                   & (np.abs(fit.x0 - half) <= 1.5) & sigma_ok & np.isfinite(fit.x_err))
         self.x[li, bi] = np.where(accept, fit.x0 + offset, np.nan)
         self.x_err[li, bi] = np.where(accept, fit.x_err, np.nan)
@@ -212,6 +215,7 @@ class _Block:
         self.data = view.data[r, c]
         self.variance = view.variance[r, c]
         self.bad = view.bad[r, c] | (rows < 0)[:, :, None] | ~self.inside[:, None, :]
+        self.saturated = view.saturated[r, c] & ~(rows < 0)[:, :, None] & self.inside[:, None, :]
 
     def row_flux(self) -> np.ndarray:
         """Each row's flux in the window above the median of its two outermost columns on
@@ -219,16 +223,17 @@ class _Block:
         edges = np.concatenate([self.data[:, :, :2], self.data[:, :, -2:]], axis=2)
         level = np.median(edges, axis=2)
         flux = np.sum(self.data[:, :, 2:-2] - level[:, :, None], axis=2, dtype=np.float64)
-        return np.where(self.bad.any(axis=2), np.nan, flux)
+        return np.where((self.bad | self.saturated).any(axis=2), np.nan, flux)
 
     def profile(self, weight: np.ndarray):
         """Robust mean over the band's rows of the pixels divided by the rows' ``weight`` (U, R):
         see the module docstring, step 1. Returns the profile, its variance and which columns
-        are usable, each (U, C)."""
+        are usable, each (U, C). Saturated pixels are left out like bad ones: a saturated
+        line is located by its wings."""
         w = np.maximum(weight, 0.02).astype(np.float32)[:, :, None]
         norm = self.data / w
         var = self.variance / (w * w)
-        bad = self.bad
+        bad = self.bad | self.saturated
         alternate = np.where(np.arange(bad.shape[1]) % 2 == 0, _HUGE, -_HUGE).astype(np.float32)
         median = np.median(np.where(bad, alternate[None, :, None], norm), axis=1)
         slope = np.zeros_like(median)
@@ -274,6 +279,17 @@ def _locate(profile: np.ndarray, usable: np.ndarray, centre: np.ndarray, reach: 
     near = np.abs(col - centre[:, None]) <= reach + 0.5
     score = np.where(near & usable, smooth, -np.inf)
     return np.argmax(score, axis=1)
+
+
+def _plateau(clipped: np.ndarray, centre: np.ndarray, reach: int) -> np.ndarray:
+    """Middle column of the saturated pixels within ``reach`` of ``centre`` (NaN where none):
+    the centre of a saturated line's flat top, from which its wings are fitted."""
+    col = np.arange(clipped.shape[1])[None, :]
+    near = clipped & (np.abs(col - centre[:, None]) <= reach + 0.5)
+    count = near.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        middle = np.sum(np.where(near, col, 0), axis=1) / count
+    return np.where(count > 0, middle, np.nan)
 
 
 def _refine(y: np.ndarray, half: int) -> np.ndarray:

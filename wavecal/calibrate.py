@@ -178,7 +178,7 @@ def calibrate_frame(source: str | Path | Frame, profile: InstrumentProfile, *,
             refined, note = _anchored(refined, anchors, table, fwhm)
             notes += (note,)
         verdict = (Verdict(Status.FAILED, ("too few lines identified",)) if refined is None
-                   else judge(_verdict_inputs(refined, ident, box, fwhm)))
+                   else judge(_verdict_inputs(refined, ident, box, fwhm, slit)))
 
     if refined is None:
         model, covered, shift = None, (math.nan, math.nan), None
@@ -257,12 +257,21 @@ def _measure_slit(frame: Frame, spectrum: Spectrum, peaks: PeakTable, *,
 
 def _slit_sigma(slit: SlitMeasurement | None) -> Callable[[np.ndarray], np.ndarray] | None:
     """The uncertainty of the shift along the slit at reference-row positions: the largest
-    over the traced rows (None without a slit model)."""
+    over the summed rows, the rows the solution is for (None without a slit model)."""
     if slit is None or slit.shift is None:
         return None
     shift = slit.shift
-    rows = np.linspace(shift.rows_covered[0], shift.rows_covered[1], 17)
+    rows = np.linspace(slit.spectrum.rows[0], slit.spectrum.rows[1] - 1, 17)
     return lambda grid: np.nanmax(shift.shift_sigma_grid(grid, rows), axis=0, initial=0.0)
+
+
+def _untraced_rows(slit: SlitMeasurement | None) -> int:
+    """Summed rows along which the lines were to be followed but could not be (0 when the
+    slit was traced, too short to trace, or not to be traced)."""
+    if slit is None or slit.shift is not None:
+        return 0
+    height = slit.spectrum.rows[1] - slit.spectrum.rows[0]
+    return height if height >= MIN_SLIT_ROWS else 0
 
 
 # -- identification and verdict -------------------------------------------------------------
@@ -339,9 +348,10 @@ def _anchored(refined: Refinement, anchors: Anchors, table: pd.DataFrame,
 
 
 def _verdict_inputs(refined: Refinement, ident: Identification, box: PriorBox,
-                    fwhm: float) -> VerdictInputs:
-    """The facts the verdict weighs, from the refined fit and the identification."""
+                    fwhm: float, slit: SlitMeasurement | None) -> VerdictInputs:
+    """The facts the verdict weighs, from the refined fit, the identification and the slit."""
     fit, evidence, runner = refined.fit, refined.evidence, ident.runner_up
+    shift = None if slit is None else slit.shift
     return VerdictInputs(
         n_used=fit.n_used, n_determined=float(np.sum(fit.leverage[fit.used])),
         log10_chance=refined.log10_chance, log10_trials=ident.log10_trials,
@@ -351,4 +361,11 @@ def _verdict_inputs(refined: Refinement, ident: Identification, box: PriorBox,
         max_sigma_px=evidence.max_sigma_px, max_sigma_at_px=evidence.max_sigma_at_px,
         leave_one_out_px=evidence.leave_one_out_px,
         leave_one_out_at_px=evidence.leave_one_out_at_px,
+        leave_pair_out_px=evidence.leave_pair_out_px,
+        leave_pair_out_at_px=evidence.leave_pair_out_at_px,
+        distortion_move_px=evidence.distortion_move_px,
+        slit_move_px=0.0 if shift is None else shift.degree_move_px(
+            np.linspace(*refined.covered_range_px, 17),
+            np.linspace(slit.spectrum.rows[0], slit.spectrum.rows[1] - 1, 17)),
+        untraced_slit_rows=_untraced_rows(slit),
         largest_gap_fraction=evidence.largest_gap_fraction)

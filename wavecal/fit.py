@@ -20,7 +20,8 @@ from scipy import optimize
 from .model_setup import PriorBox
 from .optics import GratingModel
 
-__all__ = ["FitResult", "fit_lines", "wavelength_sigma", "excess_scatter", "PHYSICAL_PARAMETERS"]
+__all__ = ["FitResult", "fit_lines", "next_degree_model", "wavelength_sigma", "excess_scatter",
+           "PHYSICAL_PARAMETERS"]
 
 #: Physical parameters fitted, with their GratingModel attribute names.
 PHYSICAL_PARAMETERS = ("grating_angle_deg", "focal_length_mm", "axis_pixel", "tilt_deg")
@@ -119,6 +120,46 @@ class FitResult:
         with np.errstate(divide="ignore", invalid="ignore"):
             loo = self.residual_px / np.clip(1.0 - self.leverage, 1e-6, None)
         return np.where(self.used, loo, np.nan)
+
+    def leave_pair_out_shift_px(self, grid: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """How far the solution moves on ``grid`` when each pair of neighbouring kept lines is
+        left out together (pixels).
+
+        Two wrong lines side by side mask each other when one is left out at a time: each
+        confirms the other, most of all at the end of the range where a distortion term bends
+        the model to both. Leaving both out is the Woodbury generalisation of
+        :meth:`leave_one_out_shift_px`: ``dθ = C A_Sᵀ (I − H_SS)⁻¹ e_S`` for the pair ``S``.
+
+        Returns
+        -------
+        shift : ndarray
+            Largest |change| of the model over ``grid`` for each pair (empty for fewer than three
+            kept lines or without a covariance).
+        pairs : ndarray of int, shape (n, 2)
+            Indices of each pair's lines in :attr:`x`.
+        """
+        cov = self.unscaled_covariance
+        kept = np.flatnonzero(self.used)
+        if kept.size < 3 or not self.names or not np.all(np.isfinite(cov)):
+            return np.zeros(0), np.zeros((0, 2), int)
+        kept = kept[np.argsort(self.x[kept])]
+        pairs = np.stack([kept[:-1], kept[1:]], axis=1)
+        steps = 1e-3 * np.asarray(self.errors)
+        grid = np.asarray(grid, float)
+        jac_grid = self.model.wavelength_derivatives(self.names, grid, steps) \
+            / np.abs(self.model.dispersion(grid))
+        rows = (self.model.wavelength_derivatives(self.names, self.x, steps)
+                / (np.abs(self.model.dispersion(self.x)) * self.sigma_px)).T
+        a = rows[pairs]  # (pairs, 2, parameters)
+        hat = a @ cov @ a.transpose(0, 2, 1)  # (pairs, 2, 2)
+        inner = np.eye(2)[None] - hat
+        # a pair the others cannot predict at all has a singular (I - H_SS): its move is unbounded
+        det = np.linalg.det(inner)
+        safe = np.where(np.abs(det)[:, None, None] > 1e-12, inner, np.eye(2)[None])
+        weights = np.linalg.solve(safe, self.normalized_residual[pairs][..., None])[..., 0]
+        delta = np.einsum("pk,pkj,ji->pi", weights, a, cov)  # (pairs, parameters)
+        shift = np.abs(delta @ jac_grid).max(axis=1)
+        return np.where(np.abs(det) > 1e-12, shift, np.inf), pairs
 
     def leave_one_out_shift_px(self, grid: np.ndarray) -> np.ndarray:
         """How far the solution moves on ``grid`` when each kept line is left out (pixels).
@@ -277,6 +318,46 @@ def fit_lines(start: GratingModel, box: PriorBox, x: np.ndarray, x_err: np.ndarr
                             degree, keep)
     result, model = run(model, degree, keep)
     return _summarise(result, model, x, lam, sigma_px, keep, degree, n_base, scatter)
+
+
+def next_degree_model(fit: FitResult, box: PriorBox, wavelength_nm: np.ndarray, *,
+                      free_grooves: bool = False,
+                      grooves_prior_fraction: float = 0.01) -> GratingModel | None:
+    """The model refitted to the same lines with the camera distortion's next degree.
+
+    The information criterion picks the simplest distortion the residuals ask for, and the
+    covariance of that fit is conditional on the choice: where lines are sparse (a gap, the
+    ends of the range) a distortion the residuals cannot detect still moves the solution by
+    more than that covariance says. How far the solution moves when the distortion gains its
+    next term is the measure of that model uncertainty (the model-selection counterpart of
+    leaving one line out).
+
+    Parameters
+    ----------
+    fit : FitResult
+        The selected fit; its kept lines and their total uncertainties are refitted.
+    box : PriorBox
+        The same priors.
+    wavelength_nm : ndarray
+        Listed wavelength of each of ``fit``'s input pairs.
+    free_grooves, grooves_prior_fraction
+        As for :func:`fit_lines`.
+
+    Returns
+    -------
+    GratingModel or None
+        None when the selected degree is the highest tried, or the kept lines are fewer than
+        the parameters of the larger model.
+    """
+    higher = [d for d in _DISTORTION_DEGREES if d > fit.distortion_degree]
+    keep = fit.used
+    if not higher or np.count_nonzero(keep) < len(fit.names) + 1:
+        return None
+    grooves_prior = ((fit.model.grooves_per_mm, fit.model.grooves_per_mm * grooves_prior_fraction)
+                     if free_grooves else None)
+    result = _single_fit(fit.model, box, fit.x[keep], np.asarray(wavelength_nm, float)[keep],
+                         fit.sigma_px[keep], higher[0], free_grooves, grooves_prior)
+    return _model_from(result.params, fit.model, higher[0])
 
 
 def excess_scatter(residual_px: np.ndarray, sigma_px: np.ndarray, n_parameters: int) -> float:

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .features import ResolvedLines
-from .fit import PHYSICAL_PARAMETERS, FitResult, fit_lines, wavelength_sigma
+from .fit import PHYSICAL_PARAMETERS, FitResult, fit_lines, next_degree_model, wavelength_sigma
 from .match import (Association, Hypothesis, associate, blend_distance_px,
                     chance_log10_probability, coincidence_probabilities)
 from .model_setup import PriorBox
@@ -69,6 +69,13 @@ class Evidence:
         shift along the slit) and where it is.
     leave_one_out_px, leave_one_out_at_px : float
         Largest move of the solution when one line is left out, and that line's position.
+    leave_pair_out_px : float
+        Largest move of the solution when two neighbouring lines are left out together.
+    leave_pair_out_at_px : tuple of float
+        Those two lines' positions.
+    distortion_move_px : float
+        Largest move of the solution when the camera distortion gains its next degree
+        (:func:`~wavecal.fit.next_degree_model`; 0 when no larger model can be fitted).
     largest_gap_fraction : float
         Largest stretch without a used line, as a fraction of the detector.
     """
@@ -77,6 +84,9 @@ class Evidence:
     max_sigma_at_px: float = math.nan
     leave_one_out_px: float = math.nan
     leave_one_out_at_px: float = math.nan
+    leave_pair_out_px: float = 0.0
+    leave_pair_out_at_px: tuple[float, float] = (math.nan, math.nan)
+    distortion_move_px: float = 0.0
     largest_gap_fraction: float = 1.0
 
 
@@ -193,7 +203,9 @@ def refine_fit(best: Hypothesis, box: PriorBox, table: pd.DataFrame, features: R
     return Refinement(fit=fit, pairs=fitted, tolerance_px=tolerance, unconfirmed=unconfirmed,
                       x=x, x_err=x_err, wavelength_nm=lam, wavelength_err_nm=lam_err,
                       log10_chance=log10_chance, prior_shifts=shifts, anchors_px=anchors,
-                      evidence=_evidence(fit, model, anchors, extra_sigma_px))
+                      evidence=_evidence(fit, anchors, extra_sigma_px,
+                                         next_degree_model(fit, box, lam[pairs_line],
+                                                           free_grooves=free_grooves)))
 
 
 def line_sigma(features: ResolvedLines) -> np.ndarray:
@@ -276,10 +288,13 @@ def _confirm(fit: FitResult, box, x, x_err, lam, lam_err, free_grooves, min_line
     return fit, unconfirmed
 
 
-def _evidence(fit: FitResult, model: GratingModel, used_x: np.ndarray,
-              extra_sigma_px: Callable[[np.ndarray], np.ndarray] | None) -> Evidence:
+def _evidence(fit: FitResult, used_x: np.ndarray,
+              extra_sigma_px: Callable[[np.ndarray], np.ndarray] | None,
+              larger: GratingModel | None) -> Evidence:
     """Uncertainty and stability of the solution between the outermost lines used; on a long
-    slit the uncertainty includes ``extra_sigma_px`` (that of the shift along the slit)."""
+    slit the uncertainty includes ``extra_sigma_px`` (that of the shift along the slit);
+    ``larger`` is the model with the next distortion degree (None: none)."""
+    model = fit.model
     if used_x.size == 0:
         return Evidence()
     grid = np.linspace(used_x.min(), used_x.max(), 65)
@@ -290,7 +305,16 @@ def _evidence(fit: FitResult, model: GratingModel, used_x: np.ndarray,
     worst = int(np.nanargmax(np.where(np.isfinite(shift), shift, -1.0)))
     top = int(np.nanargmax(np.where(np.isfinite(sigma_px), sigma_px, -1.0)))
     gaps = np.diff(np.sort(used_x)) / max(model.n_pixels - 1, 1)
+    pair_shift, pairs = fit.leave_pair_out_shift_px(grid)
+    pair = int(np.argmax(pair_shift)) if pair_shift.size else None
+    moved = (0.0 if larger is None else
+             float(np.max(np.abs(larger.wavelength(grid) - model.wavelength(grid))
+                          / np.abs(model.dispersion(grid)))))
     return Evidence(max_sigma_px=float(sigma_px[top]), max_sigma_at_px=float(grid[top]),
                     leave_one_out_px=float(shift[worst]),
                     leave_one_out_at_px=float(fit.x[worst]),
+                    leave_pair_out_px=0.0 if pair is None else float(pair_shift[pair]),
+                    leave_pair_out_at_px=((math.nan, math.nan) if pair is None else
+                                          tuple(float(v) for v in fit.x[pairs[pair]])),
+                    distortion_move_px=moved,
                     largest_gap_fraction=float(gaps.max(initial=0.0)))

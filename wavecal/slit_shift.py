@@ -60,6 +60,9 @@ class SlitShift:
     covariance : ndarray or None
         Covariance of the coefficients (flattened row by row), scaled up by the reduced
         chi-square when it exceeds one; None for a model read from a file (not stored).
+    larger : tuple of SlitShift
+        The models with one more degree along either axis, fitted to the same centres (for
+        :meth:`degree_move_px`); empty for a model read from a file (not stored).
     """
 
     reference_row: float
@@ -72,6 +75,7 @@ class SlitShift:
     n_points: int = 0
     n_rejected: int = 0
     covariance: np.ndarray | None = None
+    larger: tuple[SlitShift, ...] = ()
 
     @property
     def degree_x(self) -> int:
@@ -121,6 +125,14 @@ class SlitShift:
         along_y = self._t_powers(y)  # (ny, dy)
         g = (along_x[None, :, :, None] * along_y[:, None, None, :]).reshape(y.size, x.size, -1)
         return np.sqrt(np.clip(np.einsum("yxi,ij,yxj->yx", g, self.covariance, g), 0.0, None))
+
+    def degree_move_px(self, x, y) -> float:
+        """Largest change of ``Δ`` on the grid of ``x`` and ``y`` when the model gains one more
+        degree along either axis (:attr:`larger`): the uncertainty of the degree choice, which
+        the covariance does not contain. 0 without larger models."""
+        base = self.shift_grid(x, y)
+        return float(max((np.max(np.abs(other.shift_grid(x, y) - base)) for other in self.larger),
+                         default=0.0))
 
     def shift_grid(self, x, y) -> np.ndarray:
         """``Δ`` on the grid of the 1-D arrays ``x`` and ``y``: shape ``(len(y), len(x))``."""

@@ -24,8 +24,9 @@ Method
    lines of the row's flux in their windows relative to their mean row (so that a cosmic ray
    in one window does not count). A pixel deviating from the median over the band's rows of
    its column by more than five times its noise, plus what a slide of the line by a pixel
-   would change, is left out (a cosmic ray or hot pixel), as are bad pixels; the others are
-   averaged. As the line moves slowly and evenly along the slit, the mean of the normalised
+   would change, is left out (a cosmic ray or hot pixel), as are bad and saturated pixels;
+   the others are averaged. A saturated line is centred on its flat top and fitted by its
+   wings. As the line moves slowly and evenly along the slit, the mean of the normalised
    rows is the line profile at the band's middle row.
 2. **Centres.** In each band the line is located near its predicted position and its profile
    fitted with a Gaussian integrated over each pixel plus a constant, by weighted least
@@ -45,7 +46,9 @@ Method
    larger than they say (a blend or a faint line weighs as it deserves). The degrees, ``p``
    from 0 to 2 and ``q`` from 0 (no shift at all) to 3, minimise the Bayesian information
    criterion ``n ln(χ²/n) + k ln n``; of models within 2 of the minimum the one
-   with fewest parameters is taken.
+   with fewest parameters is taken. The models with one more degree along either axis are
+   kept beside it (:attr:`SlitShift.larger <wavecal.slit_shift.SlitShift.larger>`): how far
+   they move the shift is the uncertainty of the choice.
 """
 from __future__ import annotations
 
@@ -57,7 +60,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ._trace_bands import FLOOR_PX, SpatialFirst, TraceState, follow, split_bands
+from ._trace_bands import FLOOR_PX, MIN_BAND_SNR, SpatialFirst, TraceState, follow, split_bands
 from .errors import FrameError
 from .extract import Spectrum
 from .frames import Frame
@@ -75,8 +78,6 @@ MIN_SLIT_ROWS = 8
 #: straightened before the one-dimensional spectrum is taken; below it the line centres of the
 #: plain sum are corrected by the mean shift.
 RECTIFY_SPREAD_PX = 0.5
-#: Peak signal-to-noise ratio (in the spectrum the lines were found in) of lines worth tracing.
-_MIN_TRACE_SNR = 10.0
 #: At most this many lines are traced (the brightest).
 _MAX_LINES = 80
 #: Rejection threshold of the model fit, in robust standard deviations.
@@ -84,7 +85,7 @@ _CLIP = 4.0
 #: Largest degrees of the shift model along the dispersion and along the slit.
 _MAX_DEGREE_X, _MAX_DEGREE_Y = 2, 3
 #: Peak flags that keep a line from being traced (a blend is traced when one line dominates it).
-_SKIP_FLAGS = int(PeakFlag.POOR_FIT | PeakFlag.SATURATED | PeakFlag.EDGE)
+_SKIP_FLAGS = int(PeakFlag.POOR_FIT | PeakFlag.EDGE)
 #: A line dominates its neighbours when none of them closer than the isolation distance has
 #: more than this fraction of its flux. The profile fitted in a band then locks onto the
 #: dominant line, and the offset the neighbours cause is the same along the slit (the lines
@@ -345,10 +346,10 @@ def fit_slit_shift(traces: LineTraces, *, max_degree_x: int = _MAX_DEGREE_X,
     Returns
     -------
     SlitShift or None
-        None when fewer than three lines or two bands have accepted centres.
+        None when fewer than two lines or two bands have accepted centres.
     """
     line_id, band_id = np.nonzero(traces.good)
-    if np.unique(line_id).size < 3 or np.unique(band_id).size < 2:
+    if np.unique(line_id).size < 2 or np.unique(band_id).size < 2:
         return None
     x = traces.x[line_id, band_id]
     sigma = np.hypot(traces.x_err[line_id, band_id], FLOOR_PX)
@@ -401,10 +402,17 @@ def fit_slit_shift(traces: LineTraces, *, max_degree_x: int = _MAX_DEGREE_X,
     covered = (float(traces.band_edges[bands_used, 0].min()),
                float(traces.band_edges[bands_used, 1].max()))
     rms = float(np.sqrt(np.mean(fit.residual[keep] ** 2)))
-    return SlitShift(reference_row=reference, y_scale=half, x_domain=domain,
-                     coefficients=coefficients, rows_covered=covered, rms_px=rms,
-                     n_lines=n_used_lines, n_points=n, n_rejected=int(x.size - n),
-                     covariance=fit.covariance)
+    shift = SlitShift(reference_row=reference, y_scale=half, x_domain=domain,
+                      coefficients=coefficients, rows_covered=covered, rms_px=rms,
+                      n_lines=n_used_lines, n_points=n, n_rejected=int(x.size - n),
+                      covariance=fit.covariance)
+    larger = tuple(
+        dataclasses.replace(shift, coefficients=other.coefficients, covariance=other.covariance)
+        for other in (fit_shift_model(line_id, x, sigma, t, start, domain, ax, ay, n_lines, keep)
+                      for ax, ay in ((dx + 1, dy), (dx, dy + 1))
+                      if ax < n_used_lines and ay < bands_used.size
+                      and n > n_used_lines + (ax + 1) * ay))
+    return dataclasses.replace(shift, larger=larger)
 
 
 def _with_line_scatter(line_id, sigma, residual, keep, n_lines: int) -> np.ndarray:
@@ -436,9 +444,11 @@ def follow_lines(frame: Frame, central: PeakTable,
                  rows: tuple[int, int]) -> tuple[LineTraces, SlitShift] | None:
     """Trace the bright lines of a central band over ``rows`` and fit the shift model.
 
-    The peaks to follow are ``central``'s bright ones (the brightest, at most 80), unflagged or
-    blends that one line dominates (:data:`DOMINANCE`); all of ``central``'s peaks count as
-    their neighbours.
+    The peaks to follow are those of ``central`` that a band can measure: bright enough that
+    their signal-to-noise ratio, scaled from the central band's rows to a band's, reaches the
+    band measurements' threshold (the brightest, at most 80), unflagged or saturated (located
+    by their wings) or blends that one line dominates (:data:`DOMINANCE`); all of
+    ``central``'s peaks count as their neighbours.
 
     Parameters
     ----------
@@ -457,7 +467,9 @@ def follow_lines(frame: Frame, central: PeakTable,
     if len(central) == 0:
         return None
     fwhm = float(central.fwhm_typical) if np.isfinite(central.fwhm_typical) else 3.0
-    chosen = _candidates(central)
+    band_rows = (rows[1] - rows[0]) / split_bands(rows[0], rows[1], None).shape[0]
+    central_height = np.subtract(*central_rows(rows)[::-1])
+    chosen = _candidates(central, MIN_BAND_SNR * math.sqrt(central_height / band_rows))
     traces = trace_lines(frame, chosen["x"].to_numpy(float), rows=rows, fwhm=fwhm,
                          neighbours=central.table["x"].to_numpy(float),
                          flux=chosen["flux"].to_numpy(float),
@@ -466,12 +478,13 @@ def follow_lines(frame: Frame, central: PeakTable,
     return None if shift is None else (traces, shift)
 
 
-def _candidates(peaks: PeakTable) -> pd.DataFrame:
-    """Rows of the peaks bright enough to trace, unflagged but for blends (the brightest, at
-    most 80, sorted by ``x``): whether a blend is dominated is decided by :func:`trace_lines`."""
+def _candidates(peaks: PeakTable, min_snr: float) -> pd.DataFrame:
+    """Rows of the peaks of signal-to-noise ratio ``min_snr`` or more, unflagged but for
+    saturation and blends (the brightest, at most 80, sorted by ``x``): whether a blend is
+    dominated is decided by :func:`trace_lines`."""
     table = peaks.table
     ok = ((table["flags"].to_numpy(int) & _SKIP_FLAGS) == 0) & (
-        table["snr"].to_numpy(float) >= _MIN_TRACE_SNR)
+        table["snr"].to_numpy(float) >= min_snr)
     chosen = table[ok].sort_values("snr", ascending=False).head(_MAX_LINES)
     return chosen.sort_values("x")
 
