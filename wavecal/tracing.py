@@ -362,9 +362,10 @@ def fit_slit_shift(traces: LineTraces, *, max_degree_x: int = _MAX_DEGREE_X,
     domain = traces.x_domain
 
     def limits(keep):
+        # a line beyond those the dependence along the dispersion needs is left to check it
         lines = np.unique(line_id[keep]).size
         bands = np.unique(band_id[keep]).size
-        return min(max_degree_x, lines - 1), min(max_degree_y, bands - 1)
+        return max(min(max_degree_x, lines - 2), 0), min(max_degree_y, bands - 1)
 
     keep = np.ones(x.size, bool)
     for _ in range(8):
